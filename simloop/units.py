@@ -1,0 +1,81 @@
+"""SPICE-style numbers: ``1k``, ``10u``, ``2meg``, ``4.7e-9``.
+
+Used for every value a user hands in (``--set``, sweep specs, design files). Strict on purpose:
+a number, an optional scale suffix, nothing else. NaN and infinity are refused.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+
+from .errors import InputError
+
+#: SPICE scale suffixes (case-insensitive; ``m`` is milli, ``meg`` is mega, as in SPICE).
+SCALE_SUFFIXES: dict[str, float] = {
+    "f": 1e-15,
+    "p": 1e-12,
+    "n": 1e-9,
+    "u": 1e-6,
+    "m": 1e-3,
+    "k": 1e3,
+    "meg": 1e6,
+    "g": 1e9,
+    "t": 1e12,
+}
+
+_NUMBER = re.compile(
+    r"(?P<mant>[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?)(?P<suffix>meg|[fpnumkgt])?",
+    re.IGNORECASE,
+)
+
+
+def parse_number(text: str, *, what: str = "value") -> float:
+    """Parse one SPICE-style number.
+
+    Parameters
+    ----------
+    text : str
+        ``"1k"``, ``"10u"``, ``"2meg"``, ``"-3.3"``, ``"4.7e-9"``.
+    what : str
+        What the number is, for the error message (``"--set RL"``).
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    InputError
+        On anything else (units such as ``10uF``, NaN, inf, empty text), naming ``what``.
+
+    Examples
+    --------
+    >>> parse_number("2meg"), parse_number("10u"), parse_number("1.5K")
+    (2000000.0, 1e-05, 1500.0)
+    """
+    s = str(text).strip()
+    m = _NUMBER.fullmatch(s)
+    if m is None:
+        raise InputError(
+            f"{what}: {text!r} is not a number; write digits with an optional scale suffix "
+            "f p n u m k meg g t (e.g. 1k, 10u, 2meg), no units"
+        )
+    value = float(m.group("mant"))
+    suffix = m.group("suffix")
+    if suffix:
+        value *= SCALE_SUFFIXES[suffix.lower()]
+    if not math.isfinite(value):
+        raise InputError(f"{what}: {text!r} is out of the range of finite numbers")
+    return value
+
+
+def format_number(value: float, digits: int = 4) -> str:
+    """Format a value with an engineering scale suffix, SPICE-readable (``4.7k``, ``10u``)."""
+    if value == 0 or not math.isfinite(value):
+        return repr(float(value))
+    exp3 = int(math.floor(math.log10(abs(value)) / 3))
+    exp3 = max(-5, min(4, exp3))
+    names = {-5: "f", -4: "p", -3: "n", -2: "u", -1: "m", 0: "", 1: "k", 2: "meg", 3: "g", 4: "t"}
+    scaled = value / 10.0 ** (3 * exp3)
+    return f"{scaled:.{digits}g}{names[exp3]}"
