@@ -8,20 +8,22 @@ from __future__ import annotations
 
 import math
 import re
+from decimal import Decimal
 
 from .errors import InputError
 
 #: SPICE scale suffixes (case-insensitive; ``m`` is milli, ``meg`` is mega, as in SPICE).
-SCALE_SUFFIXES: dict[str, float] = {
-    "f": 1e-15,
-    "p": 1e-12,
-    "n": 1e-9,
-    "u": 1e-6,
-    "m": 1e-3,
-    "k": 1e3,
-    "meg": 1e6,
-    "g": 1e9,
-    "t": 1e12,
+#: Values are decimal exponents, applied exactly (``10u`` is 1e-05, not 9.999999999999999e-06).
+SCALE_SUFFIXES: dict[str, int] = {
+    "f": -15,
+    "p": -12,
+    "n": -9,
+    "u": -6,
+    "m": -3,
+    "k": 3,
+    "meg": 6,
+    "g": 9,
+    "t": 12,
 }
 
 _NUMBER = re.compile(
@@ -61,10 +63,14 @@ def parse_number(text: str, *, what: str = "value") -> float:
             f"{what}: {text!r} is not a number; write digits with an optional scale suffix "
             "f p n u m k meg g t (e.g. 1k, 10u, 2meg), no units"
         )
-    value = float(m.group("mant"))
     suffix = m.group("suffix")
+    mantissa = Decimal(m.group("mant"))
     if suffix:
-        value *= SCALE_SUFFIXES[suffix.lower()]
+        mantissa = mantissa.scaleb(SCALE_SUFFIXES[suffix.lower()])
+    try:
+        value = float(mantissa)
+    except OverflowError:  # pragma: no cover - Decimal gives inf, not an exception
+        value = math.inf
     if not math.isfinite(value):
         raise InputError(f"{what}: {text!r} is out of the range of finite numbers")
     return value
