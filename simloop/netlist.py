@@ -1070,6 +1070,9 @@ class CircuitTemplate:
         Whether the metadata came from a ``.toml`` file or was inferred from the netlist.
     builtin : bool
         True for the circuits shipped with simloop.
+    roles : mapping of str to str or int
+        Parameter names by role (``load``, ``source_resistance``, ``reservoir``, ...), the
+        element that delivers the input power (``power_source``) and ``diodes_in_path``.
     """
 
     name: str
@@ -1090,6 +1093,8 @@ class CircuitTemplate:
     metadata_origin: MetadataOrigin
     builtin: bool
     _lines: tuple[_Line, ...] = field(repr=False, compare=False)
+    roles: Mapping[str, str | int] = field(default_factory=lambda: FrozenMap())
+    """What the estimate and the efficiency need to know (see :data:`ROLE_PARAMETERS`)."""
 
     @property
     def defaults(self) -> dict[str, float]:
@@ -1263,7 +1268,14 @@ def _drop_notes(dropped: Mapping[str, list[int]]) -> tuple[str, ...]:
 # ---------------------------------------------------------------------------- loading
 _TOP_KEYS = {"title", "description", "ideal_kind", "estimate_kind", "reference",
              "fundamental_param", "amplitude_param", "default_probe", "conduction_probes",
-             "parameters", "probes", "choices"}
+             "parameters", "probes", "choices", "roles"}
+#: Roles a parameter can play for the drop-corrected estimate (``[roles]`` in the metadata).
+ROLE_PARAMETERS = frozenset({
+    "load", "source_resistance", "reservoir", "reservoir_esr", "on_resistance", "duty",
+    "stray_inductance", "stray_capacitance",
+})
+#: Other roles: the element delivering the input power, and conducting diodes in series.
+ROLE_OTHER = frozenset({"power_source", "diodes_in_path"})
 _PARAM_KEYS = {"unit", "meaning", "min", "max"}
 _CHOICE_KEYS = {"default", "devices", "allowed", "meaning"}
 
@@ -1422,16 +1434,43 @@ def _load(path: Path, *, builtin: bool) -> CircuitTemplate:
     fundamental = param_key("fundamental_param", "Hz")
     if fundamental is None and found is None:
         raise fail("no fundamental_param and no SIN or PULSE source in the netlist; add one")
+    roles = _read_roles(meta.get("roles", {}), params, inlined, fail)
     template = CircuitTemplate(
         path.stem, path, text, str(meta.get("title", title)), str(meta.get("description", "")),
         FrozenMap(params), FrozenMap(probes), default_probe, conduction, fundamental,
         param_key("amplitude_param", "V"), kind_key("reference", TIME_REFERENCES),
         kind_key("ideal_kind", WAVEFORM_KINDS), kind_key("estimate_kind", WAVEFORM_KINDS),
-        FrozenMap(choices), "sidecar", builtin, tuple(lines),
+        FrozenMap(choices), "sidecar", builtin, tuple(lines), FrozenMap(roles),
     )
     if found is not None:
         _periodic_from(*found, _param_env(defs, {}))
     return template
+
+
+def _read_roles(raw, params, inlined, fail) -> dict[str, str | int]:
+    if not isinstance(raw, dict):
+        raise fail("roles: give a table, e.g. [roles] load = \"rload\"")
+    roles: dict[str, str | int] = {}
+    for key, value in raw.items():
+        role = str(key).lower()
+        if role in ROLE_PARAMETERS:
+            name = str(value).lower()
+            if name not in params:
+                raise fail(f"roles.{role}: {value!r} is not a parameter; parameters: {', '.join(params)}")
+            roles[role] = name
+        elif role == "diodes_in_path":
+            if not isinstance(value, int) or isinstance(value, bool) or not 1 <= value <= 8:
+                raise fail("roles.diodes_in_path: give a whole number 1..8")
+            roles[role] = value
+        elif role == "power_source":
+            name = str(value).lower()
+            if name not in circuit_branches(inlined):
+                raise fail(f"roles.power_source: no voltage source {value!r} in the netlist")
+            roles[role] = name
+        else:
+            known = ", ".join(sorted(ROLE_PARAMETERS | ROLE_OTHER))
+            raise fail(f"roles: unknown role {key!r}; known: {known}")
+    return roles
 
 
 def _single_param(arg: str) -> str | None:
