@@ -696,6 +696,63 @@ def circuit_branches(text: str) -> frozenset[str]:
     return frozenset(t[0] for t in _top_cards(text) if t[0][0] in "vehl")
 
 
+def element_nodes(text: str, name: str) -> tuple[str, ...]:
+    """Lower-case node names of the top-level element ``name`` (its first two for a source).
+
+    Raises
+    ------
+    InputError
+        If no top-level element has that name.
+    """
+    wanted = name.lower()
+    for tokens in _top_cards(text):
+        if tokens[0] == wanted:
+            return tuple(tokens[1:3])
+    raise InputError(f"no element {name!r} in the circuit")
+
+
+def device_models(text: str, prefix: str = "d") -> dict[str, str]:
+    """``{device: model}`` of the top-level devices whose names start with ``prefix``."""
+    models = _model_names(text)
+    found: dict[str, str] = {}
+    for tokens in _top_cards(text):
+        if tokens[0].startswith(prefix.lower()) and not tokens[0].startswith("."):
+            model = next((t for t in tokens[1:] if t in models), None)
+            if model is not None:
+                found[tokens[0]] = model
+    return found
+
+
+_MODEL_ASSIGN = re.compile(r"([A-Za-z_]\w*)\s*=\s*([^\s()=,]+)")
+
+
+def model_parameters(text: str, model: str) -> dict[str, float]:
+    """Numeric parameters of the ``.model`` card named ``model`` (upper-case keys).
+
+    Values that are not plain SPICE numbers (expressions in braces) are left out.
+
+    Examples
+    --------
+    >>> model_parameters("t\n.model dx D(IS=1e-9 N=1.8 RS=0.5)\n", "dx")
+    {'IS': 1e-09, 'N': 1.8, 'RS': 0.5}
+    """
+    wanted = model.lower()
+    for ln in _logical_lines(text.replace("\r\n", "\n"), origin="netlist", title=True):
+        if ln.kind != "card" or ln.first != ".model":
+            continue
+        tokens = [m.group(0).lower() for m in _tokens(ln.text)]
+        if len(tokens) < 3 or tokens[1] != wanted:
+            continue
+        values: dict[str, float] = {}
+        for key, raw in _MODEL_ASSIGN.findall(ln.text):
+            try:
+                values[key.upper()] = parse_number(raw)
+            except InputError:
+                continue
+        return values
+    raise InputError(f"no .model {model!r} in the circuit")
+
+
 def circuit_instances(text: str) -> frozenset[str]:
     """Lower-case names of the top-level subcircuit instances (X lines)."""
     return frozenset(t[0] for t in _top_cards(text) if t[0][0] == "x")
