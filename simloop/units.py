@@ -85,3 +85,14 @@ def format_number(value: float, digits: int = 4) -> str:
     names = {-5: "f", -4: "p", -3: "n", -2: "u", -1: "m", 0: "", 1: "k", 2: "meg", 3: "g", 4: "t"}
     scaled = value / 10.0 ** (3 * exp3)
     return f"{scaled:.{digits}g}{names[exp3]}"
+
+
+_SI_PREFIXES = {-4: "p", -3: "n", -2: "u", -1: "m", 0: "", 1: "k", 2: "M", 3: "G", 4: "T"}
+
+
+def format_si(value: float, unit: str, digits: int = 4) -> str:
+    """Format a value with an SI prefix and its unit, for people (``10 MHz``, ``4.7 kohm``)."""
+    if value == 0 or not math.isfinite(value):
+        return f"{value:g} {unit}"
+    exp3 = max(-4, min(4, int(math.floor(math.log10(abs(value)) / 3))))
+    return f"{value / 10.0 ** (3 * exp3):.{digits}g} {_SI_PREFIXES[exp3]}{unit}"
