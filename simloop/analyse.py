@@ -1,0 +1,430 @@
+"""One circuit, end to end: render, simulate to periodic steady state, decompose, compare.
+
+This is the orchestrator behind ``simloop run`` (and each point of a sweep). It wires the
+modules together and knows no file formats: the command line writes the outputs.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .compare import HarmonicRow, compare_spectra, conduction_angle_deg, conversion_efficiency
+from .errors import InputError
+from .fourier import spectrum_from_samples, thd, thd_rms, waveform_metrics
+from .netlist import CircuitTemplate, RenderedCircuit, device_models, element_nodes, load_circuit
+from .netlist import model_parameters
+from .probe import Probe, parse_probe
+from .spectrum import Spectrum
+from .steady import SteadySettings, SteadyState, default_tmax, settle
+from .vocab import WAVEFORM_KINDS, ResampleMethod
+
+_HEAVY = True  # runs the engine (PySpice in worker processes) when called
+
+
+@dataclass(frozen=True, slots=True)
+class RunSettings:
+    """What to simulate and how.
+
+    Parameters
+    ----------
+    harmonics : int
+        Highest harmonic order N, 1..1000.
+    probe : str or None
+        Probe name or expression (``v(out)``, ``v(a,b)``, ``i(V1)``); None: the circuit's own.
+    fundamental_hz, amplitude : float or None
+        Overrides of the fundamental [Hz] and the drive amplitude [V] used for the ideal.
+    ideal_kind : str or None
+        Override of the ideal counterpart (:data:`simloop.vocab.WAVEFORM_KINDS`).
+    steady : SteadySettings
+    method : {"spline", "linear"}
+        Resampling of the engine's points before the Fourier integral.
+    """
+
+    harmonics: int = 10
+    probe: str | None = None
+    fundamental_hz: float | None = None
+    amplitude: float | None = None
+    ideal_kind: str | None = None
+    steady: SteadySettings = field(default_factory=SteadySettings)
+    method: ResampleMethod = "spline"
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.harmonics, int) or not 1 <= self.harmonics <= 1000:
+            raise InputError(f"harmonics must be a whole number 1..1000, got {self.harmonics!r}")
+        for name in ("fundamental_hz", "amplitude"):
+            value = getattr(self, name)
+            if value is not None and not (math.isfinite(value) and value > 0):
+                raise InputError(f"{name} must be a positive finite number, got {value!r}")
+        if self.ideal_kind is not None and self.ideal_kind not in WAVEFORM_KINDS:
+            raise InputError(
+                f"ideal kind {self.ideal_kind!r} is unknown; use one of {', '.join(WAVEFORM_KINDS)}"
+            )
+
+
+@dataclass(frozen=True, slots=True)
+class RunResult:
+    """Everything one run found. ``to_dict()`` gives the JSON document of ``simloop run``."""
+
+    circuit: str
+    title: str
+    parameters: Mapping[str, float]
+    choices: Mapping[str, str]
+    probe: str
+    fundamental_hz: float
+    amplitude: float | None
+    ideal_kind: str | None
+    estimate_kind: str | None
+    engine_version: str
+    steady: SteadyState = field(repr=False)
+    metrics: Mapping[str, Any]
+    rows: tuple[HarmonicRow, ...] = field(repr=False)
+    simulated: Spectrum = field(repr=False)
+    ideal: Spectrum | None = field(repr=False)
+    estimate: Spectrum | None = field(repr=False)
+    period_time: NDArray[np.float64] = field(repr=False)
+    period_wave: NDArray[np.float64] = field(repr=False)
+    ideal_parameters: Mapping[str, Any] = field(default_factory=dict, repr=False)
+    notes: tuple[str, ...] = ()
+    settings: RunSettings = field(default_factory=RunSettings, repr=False)
+
+    @property
+    def converged(self) -> bool:
+        return self.steady.converged
+
+    def to_dict(self) -> dict[str, Any]:
+        name, _, version = self.engine_version.partition("-")
+        return {
+            "circuit": self.circuit,
+            "title": self.title,
+            "parameters": dict(self.parameters),
+            "choices": dict(self.choices),
+            "probe": self.probe,
+            "fundamental_hz": self.fundamental_hz,
+            "amplitude_v": self.amplitude,
+            "ideal_kind": self.ideal_kind,
+            "estimate_kind": self.estimate_kind,
+            "engine": {"name": name or "ngspice", "version": version or self.engine_version},
+            "settings": {
+                "harmonics": self.settings.harmonics,
+                "tolerance": self.settings.steady.tolerance,
+                "max_periods": self.settings.steady.max_periods,
+                "resampling": self.settings.method,
+            },
+            "steady_state": self.steady.figures(),
+            "metrics": dict(self.metrics),
+            "harmonics": [row.as_dict() for row in self.rows],
+            "notes": list(self.notes),
+        }
+
+
+# ---------------------------------------------------------------------------- pieces
+def resolve_fundamental(template: CircuitTemplate, rendered: RenderedCircuit,
+                        override: float | None) -> float:
+    if override is not None:
+        return float(override)
+    if template.fundamental_param is not None:
+        return float(rendered.parameters[template.fundamental_param])
+    drive = rendered.drive
+    if drive is not None:
+        freq = drive.frequency if drive.kind == "sin" else (1.0 / drive.period if drive.period else None)
+        if freq:
+            return float(freq)
+    raise InputError(
+        f"{template.name}: cannot tell the fundamental; give --fundamental HZ"
+    )
+
+
+def resolve_amplitude(template: CircuitTemplate, rendered: RenderedCircuit,
+                      override: float | None) -> float | None:
+    if override is not None:
+        return float(override)
+    if template.amplitude_param is not None:
+        return float(rendered.parameters[template.amplitude_param])
+    drive = rendered.drive
+    if drive is None:
+        return None
+    if drive.kind == "sin":
+        return float(drive.amplitude)
+    return float(abs(drive.v2 - drive.v1)) if drive.v1 is not None else None
+
+
+def _role(template: CircuitTemplate, rendered: RenderedCircuit, role: str) -> float | None:
+    name = template.roles.get(role)
+    return None if name is None else float(rendered.parameters[name])
+
+
+def ideal_parameters(kind: str, template: CircuitTemplate, rendered: RenderedCircuit, *,
+                     amplitude: float, fundamental_hz: float) -> dict[str, Any]:
+    """Keyword parameters of :func:`simloop.ideal.ideal_spectrum` for this circuit."""
+    reference = template.reference or ("sine" if rendered.drive and rendered.drive.kind == "sin" else "cosine")
+    params: dict[str, Any] = {"fundamental_hz": fundamental_hz}
+    if kind in ("half-wave", "full-wave"):
+        params.update(amplitude=amplitude, reference=reference)
+        return params
+    duty = _role(template, rendered, "duty")
+    drive = rendered.drive
+    if duty is None and drive is not None and drive.kind == "pulse":
+        duty = drive.duty
+    if kind == "square":
+        duty = 0.5
+    if kind in ("pulse", "square", "trapezoid") and duty is None:
+        raise InputError(f"{template.name}: the {kind} ideal needs a duty cycle; give a PULSE source")
+    centre = drive.time_origin if drive is not None and drive.kind == "pulse" else 0.0
+    period = 1.0 / fundamental_hz
+    delay = (centre - duty * period / 2.0) % period if duty is not None else 0.0
+    if kind == "pulse":
+        params.update(amplitude=amplitude, duty=duty, delay=delay)
+    elif kind == "square":
+        params.update(amplitude=amplitude, delay=delay)
+    elif kind == "trapezoid":
+        rise = drive.rise if drive is not None and drive.rise else 0.0
+        fall = drive.fall if drive is not None and drive.fall else 0.0
+        params.update(amplitude=amplitude, width=duty * period, rise=rise, fall=fall,
+                      delay=(delay - rise / 2.0) % period)
+    elif kind == "truncated-cosine":
+        raise InputError("truncated-cosine is an estimate, not an ideal counterpart; use --ideal half-wave")
+    return params
+
+
+def drop_corrected_estimate(template: CircuitTemplate, rendered: RenderedCircuit, *,
+                            amplitude: float, fundamental_hz: float, harmonics: int,
+                            ideal_kind: str | None) -> tuple[Spectrum | None, dict[str, float]]:
+    """The estimate for rectifiers (truncated cosine / reservoir) and switching stages (trapezoid).
+
+    Returns the spectrum (None where the circuit does not declare what the estimate needs) and
+    the figures it used (``drop_v``, ``peak_current_a``, ...).
+    """
+    from . import estimate as est
+    from .ideal import trapezoid_pulse
+
+    kind = template.estimate_kind
+    load = _role(template, rendered, "load")
+    if kind is None or load is None:
+        return None, {}
+    if kind == "truncated-cosine":
+        diodes = device_models(rendered.text, "d")
+        if not diodes:
+            return None, {}
+        model = model_parameters(rendered.text, next(iter(diodes.values())))
+        is_, n_e, rs_d = model.get("IS", 1e-14), model.get("N", 1.0), model.get("RS", 0.0)
+        in_path = int(template.roles.get("diodes_in_path", 1))
+        r_src = (_role(template, rendered, "source_resistance") or 0.0) + in_path * rs_d
+        full = ideal_kind == "full-wave"
+        reference = template.reference or "sine"
+        drop, peak = est.operating_drop(amplitude, resistance=r_src + load, saturation_current=is_,
+                                        emission=n_e, diodes_in_path=in_path)
+        cres = _role(template, rendered, "reservoir") or 0.0
+        if cres > 0 and r_src > 0:
+            for _ in range(3):  # the peak current sets the drop, the drop the peak current
+                spec, peak = est.reservoir_rectifier(
+                    amplitude, drop, source_resistance=r_src, load=load, capacitance=cres,
+                    harmonics=harmonics, fundamental_hz=fundamental_hz, full_wave=full,
+                    reference=reference)
+                drop = in_path * est.junction_drop(peak, saturation_current=is_, emission=n_e)
+            spec, peak = est.reservoir_rectifier(
+                amplitude, drop, source_resistance=r_src, load=load, capacitance=cres,
+                harmonics=harmonics, fundamental_hz=fundamental_hz, full_wave=full,
+                reference=reference)
+        else:
+            spec = est.resistive_rectifier(amplitude, drop, resistance=r_src + load, load=load,
+                                           harmonics=harmonics, fundamental_hz=fundamental_hz,
+                                           full_wave=full, reference=reference)
+        return spec, {"drop_v": drop, "peak_current_a": peak}
+    if kind == "trapezoid":
+        ron = _role(template, rendered, "on_resistance") or 0.0
+        lpar = _role(template, rendered, "stray_inductance") or 0.0
+        cpar = _role(template, rendered, "stray_capacitance") or 0.0
+        params = ideal_parameters("pulse", template, rendered, amplitude=amplitude,
+                                  fundamental_hz=fundamental_hz)
+        period = 1.0 / fundamental_hz
+        level = amplitude * load / (load + ron)
+        # First-order edges: turn-on through L/(R_L + R_on), turn-off through R_L C + L/R_L;
+        # an exponential edge's 10-90 % time is 2.2 tau, a linear ramp's is 0.8 of its length.
+        rise = 2.2 / 0.8 * lpar / (load + ron)
+        fall = 2.2 / 0.8 * (load * cpar + lpar / load)
+        width = params["duty"] * period + (fall - rise) / 2.0
+        if rise + fall >= period or width <= (rise + fall) / 2.0:
+            return None, {}
+        spec = trapezoid_pulse(level, width, rise=rise, fall=fall, harmonics=harmonics,
+                               fundamental_hz=fundamental_hz, delay=params["delay"])
+        return spec, {"level_v": level, "rise_s": rise, "fall_s": fall}
+    return None, {}
+
+
+def _source_power(template: CircuitTemplate, rendered: RenderedCircuit, time, vectors,
+                  fundamental_hz: float) -> float | None:
+    source = template.roles.get("power_source")
+    if source is None:
+        return None
+    plus, minus = element_nodes(rendered.text, str(source))
+    v = parse_probe(f"v({plus},{minus})" if minus != "0" else f"v({plus})").evaluate(vectors)
+    i = vectors[f"{source}#branch"]
+    period = 1.0 / fundamental_hz
+    mask = time >= time[-1] - period * (1 + 1e-12)
+    # SPICE's branch current flows into the + terminal, so delivered power is -v i.
+    return float(-np.trapezoid(v[mask] * i[mask], time[mask]) / (time[mask][-1] - time[mask][0]))
+
+
+def _power_probes(template: CircuitTemplate, rendered: RenderedCircuit) -> tuple[str, ...]:
+    source = template.roles.get("power_source")
+    if source is None:
+        return ()
+    plus, minus = element_nodes(rendered.text, str(source))
+    saves = [f"i({source})"] + [f"v({n})" for n in (plus, minus) if n != "0"]
+    return tuple(saves)
+
+
+def _has_fundamental(spectrum: Spectrum) -> bool:
+    """True unless the fundamental is below 1e-6 of the largest component (a full-wave output)."""
+    return bool(spectrum.amplitude[1] > 1e-6 * np.max(np.abs(spectrum.amplitude)))
+
+
+# ---------------------------------------------------------------------------- the run
+def run_circuit(
+    circuit: str | CircuitTemplate,
+    *,
+    values: Mapping[str, float] | None = None,
+    choices: Mapping[str, str] | None = None,
+    settings: RunSettings | None = None,
+    pool: Any = None,
+) -> RunResult:
+    """Simulate one circuit to its periodic steady state and compare its harmonics with theory.
+
+    Parameters
+    ----------
+    circuit : str or CircuitTemplate
+        Built-in name, netlist path, or a loaded template.
+    values : mapping
+        Parameter values overriding the defaults (``{"rload": 1e3}``).
+    choices : mapping
+        Model choices (``{"diode": "sl_schottky"}``).
+    settings : RunSettings
+    pool : simloop.engine.EnginePool, optional
+        Engine workers to use; a private one-worker pool otherwise.
+
+    Returns
+    -------
+    RunResult
+        Check ``converged``: an unconverged result is returned (nothing computed is lost) but
+        its spectrum is not a steady-state one.
+
+    Raises
+    ------
+    InputError, NetlistRefused
+        Before the engine runs, for bad circuits, values, probes and settings.
+    SimulationError
+        When the engine fails.
+    """
+    from .engine import TransientRequest, run_transient
+
+    settings = settings or RunSettings()
+    template = circuit if isinstance(circuit, CircuitTemplate) else load_circuit(circuit)
+    rendered = template.render(values or {}, choices or {})
+    f0 = resolve_fundamental(template, rendered, settings.fundamental_hz)
+    amplitude = resolve_amplitude(template, rendered, settings.amplitude)
+    probe: Probe | None = template.probe(settings.probe) if settings.probe else template.default_probe
+    if probe is None:
+        raise InputError(f"{template.name}: no default probe; give --probe, e.g. --probe 'v(out)'")
+    ideal_kind = settings.ideal_kind or template.ideal_kind
+    harmonics = settings.harmonics
+    conduction = tuple(template.conduction_probes)
+    saves = sorted({*probe.save_vectors(), *(s for p in conduction for s in p.save_vectors()),
+                    *_power_probes(template, rendered)})
+    tmax = settings.steady.tmax or default_tmax(f0, harmonics)
+    period = 1.0 / f0
+    params = tuple(sorted(rendered.parameters.items()))
+
+    def run_periods(periods: int, tstart: float):
+        trace = run_transient(
+            TransientRequest(
+                netlist=rendered.text, stop=periods * period, step=tmax, tmax=tmax,
+                start=tstart, save=tuple(saves), timeout=settings.steady.timeout,
+                circuit=template.name, parameters=params,
+            ),
+            pool=pool,
+        )
+        return trace.time, trace.vectors, trace.engine_version
+
+    def watch(vectors):
+        return [probe.evaluate(vectors), *(p.evaluate(vectors) for p in conduction)]
+
+    steady = settle(run_periods, fundamental_hz=f0, watch=watch, settings=settings.steady,
+                    tmax=tmax, harmonics=harmonics)
+    time = steady.time
+    wave = probe.evaluate(steady.vectors)
+    simulated = spectrum_from_samples(time, wave, fundamental_hz=f0, harmonics=harmonics,
+                                      periods=1, method=settings.method)
+    shape = waveform_metrics(time, wave, fundamental_hz=f0, periods=1, method=settings.method)
+
+    ideal = None
+    ideal_params: dict[str, Any] = {}
+    notes = list(rendered.notes) if not template.builtin else []
+    if ideal_kind is not None and amplitude is not None:
+        from .ideal import ideal_spectrum
+
+        ideal_params = ideal_parameters(ideal_kind, template, rendered, amplitude=amplitude,
+                                        fundamental_hz=f0)
+        ideal = ideal_spectrum(ideal_kind, harmonics=harmonics, **ideal_params)
+    elif ideal_kind is None:
+        notes.append("no ideal counterpart known: give --ideal KIND to compare with one")
+    estimate, estimate_figures = (None, {})
+    if amplitude is not None:
+        estimate, estimate_figures = drop_corrected_estimate(
+            template, rendered, amplitude=amplitude, fundamental_hz=f0, harmonics=harmonics,
+            ideal_kind=ideal_kind)
+    rows = compare_spectra(simulated, ideal=ideal, estimate=estimate)
+
+    metrics: dict[str, Any] = {
+        "dc_v": shape.dc,
+        "rms_v": shape.rms,
+        "ripple_v": shape.ripple_pp,
+        "peak_v": shape.peak,
+        "trough_v": shape.trough,
+        "crest_factor": shape.crest_factor,
+        # THD re the fundamental only where there is one (not for full-wave outputs)
+        "thd": thd(simulated) if _has_fundamental(simulated) else None,
+        "thd_r": thd_rms(simulated),
+        "thd_orders": f"2..{harmonics}",
+    }
+    if conduction:
+        angles = [conduction_angle_deg(time, p.evaluate(steady.vectors), fundamental_hz=f0)
+                  for p in conduction]
+        metrics["conduction_angle_deg"] = float(np.mean(angles))
+    metrics.update(estimate_figures)
+    p_src = _source_power(template, rendered, time, steady.vectors, f0)
+    load = _role(template, rendered, "load")
+    if p_src is not None:
+        metrics["source_power_w"] = p_src
+    if p_src is not None and p_src > 0 and load is not None and probe == template.default_probe:
+        eff = conversion_efficiency(simulated, load_ohm=load, source_power_w=p_src)
+        metrics["efficiency"] = {str(n): float(e) for n, e in enumerate(eff)}
+    last = time >= time[-1] - period * (1 + 1e-12)
+    return RunResult(
+        circuit=template.name,
+        title=template.title,
+        parameters=dict(rendered.parameters),
+        choices=dict(rendered.choices),
+        probe=probe.label,
+        fundamental_hz=f0,
+        amplitude=amplitude,
+        ideal_kind=ideal_kind,
+        estimate_kind=template.estimate_kind if estimate is not None else None,
+        engine_version=steady.engine_version,
+        steady=steady,
+        metrics=metrics,
+        rows=rows,
+        simulated=simulated,
+        ideal=ideal,
+        estimate=estimate,
+        period_time=time[last],
+        period_wave=wave[last],
+        ideal_parameters=ideal_params,
+        notes=tuple(notes),
+        settings=settings,
+    )
