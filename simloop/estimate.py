@@ -183,6 +183,14 @@ def reservoir_rectifier(
         return sol
 
     top = max(amplitude - drop, 0.0)
+    parallel = source_resistance * load / (source_resistance + load)
+    if capacitance * parallel < 1e-6 * period:
+        # The capacitor settles within a millionth of a period: it changes nothing measurable
+        # and would only make the equation stiff. The resistive closed form is the limit.
+        spec = resistive_rectifier(amplitude, drop, resistance=source_resistance + load,
+                                   load=load, harmonics=harmonics, fundamental_hz=fundamental_hz,
+                                   full_wave=full_wave, reference=reference)
+        return spec, top / (source_resistance + load)
     if top == 0.0:
         n = harmonics + 1
         return Spectrum(fundamental_hz, np.zeros(n), np.zeros(n)), 0.0
