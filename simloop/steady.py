@@ -19,8 +19,20 @@ from numpy.typing import NDArray
 
 from .errors import InputError
 
-#: Periods of data kept at the end of each run (two for the change, one more for its decay).
+#: Periods of data kept at the end of each run at the least (first attempt: 12 periods).
 KEPT_PERIODS = 3
+#: Largest spacing k [periods] between the three periods compared (P - 2k, P - k, P).
+MAX_SPACING = 8
+
+
+def spacing(periods: int) -> int:
+    """Spacing k of the three compared periods: P // 4, between 1 and :data:`MAX_SPACING`.
+
+    Comparing periods k apart rather than neighbours multiplies the settling signal by about k
+    (for slow settling) while the step-to-step noise of the engine's points stays the same, so
+    the decay ratio is measured k times more reliably; k <= 8 bounds the data kept.
+    """
+    return max(1, min(MAX_SPACING, periods // 4))
 
 #: Fraction of the tolerance below which a period-to-period change of the harmonics that does
 #: not decay is taken as the engine's step-to-step noise (ngspice's default VNTOL of 1 uV and
@@ -80,7 +92,7 @@ class SteadyState:
     Attributes
     ----------
     time : array [s]
-        Native engine time points of the last ``KEPT_PERIODS`` periods.
+        Native engine time points of the last periods (at least ``KEPT_PERIODS``).
     vectors : mapping of name to array
         The engine vectors over the same points.
     periods_simulated : int
@@ -90,9 +102,10 @@ class SteadyState:
     converged : bool
         Whether the remaining drift is below the tolerance.
     residual : float
-        Change between the last two periods, relative to peak [-].
+        Largest change of the harmonics between periods P - k and P (k from :func:`spacing`),
+        relative to the largest component [-].
     drift : float
-        Estimated change still to come (geometric tail), relative to peak [-].
+        Estimated change still to come (geometric tail), relative to the largest component [-].
     tmax : float
         Engine maximum step used [s].
     engine_version : str
@@ -146,9 +159,11 @@ def period_spectra(
     end: float,
     count: int,
     harmonics: int,
+    every: int = 1,
     grid: int = 4096,
 ) -> NDArray[np.complex128]:
-    """Complex amplitudes C_0..C_N of each of the last ``count`` whole periods ending at ``end``.
+    """Complex amplitudes C_0..C_N of ``count`` whole periods, ``every`` periods apart, the
+    last ending at ``end``.
 
     A cubic spline through the native points is read on a uniform grid of ``grid`` points per
     period and transformed (FFT). The grid's own error is the same in every period of a
@@ -161,8 +176,8 @@ def period_spectra(
     spline = CubicSpline(time[keep], x[keep])
     rows = []
     offsets = np.arange(grid) * (period / grid)
-    for k in range(count, 0, -1):
-        start = end - k * period
+    for k in range(count - 1, -1, -1):
+        start = end - (k * every + 1) * period
         samples = spline(np.clip(start + offsets, time[0], time[-1]))
         c = np.fft.rfft(samples)[: harmonics + 1] * (2.0 / grid)
         c[0] *= 0.5
@@ -178,24 +193,26 @@ def judge(
     end: float,
     harmonics: int,
     noise: float,
+    every: int = 1,
 ) -> tuple[float, float, float]:
     """Residual, estimated remaining drift and decay ratio of the harmonics' settling.
 
     Notes
     -----
-    For each watched waveform the complex amplitudes X_k = (C_0..C_N) of the last three
-    periods give two changes d0 = X_{P-1} - X_{P-2} and d1 = X_P - X_{P-1} (largest component
-    of each, relative to the largest amplitude). The residual is |d1|. Settling is geometric
-    near the steady state, d_{k+1} = rho d_k, so with rho = |d1| / |d0| < 1 the change still
-    to come is |d1| rho / (1 - rho). Where rho >= 1 the waveform is not (yet) settling and the
-    drift is infinite, unless |d1| is already below ``noise`` (:data:`NOISE_FRACTION` of the
-    tolerance), where the changes are the engine's step-to-step noise rather than settling.
+    For each watched waveform the complex amplitudes X = (C_0..C_N) of three periods k apart
+    (k = ``every``) give two changes d0 = X_{P-k} - X_{P-2k} and d1 = X_P - X_{P-k} (largest
+    component of each, relative to the largest amplitude). The residual is |d1|. Settling is
+    geometric near the steady state, so with r = |d1| / |d0| < 1 (the decay over k periods)
+    the change still to come is |d1| r / (1 - r). Where r >= 1 the waveform is not (yet)
+    settling and the drift is infinite, unless |d1| is already below ``noise``
+    (:data:`NOISE_FRACTION` of the tolerance): there the changes are the engine's
+    step-to-step noise rather than settling.
     """
     residual = 0.0
     drift = 0.0
     slowest = 0.0
     for x in waveforms:
-        c = period_spectra(time, x, period=period, end=end, count=KEPT_PERIODS,
+        c = period_spectra(time, x, period=period, end=end, count=3, every=every,
                            harmonics=harmonics)
         scale = float(np.max(np.abs(c[-1])))
         if scale == 0.0:
@@ -208,7 +225,7 @@ def judge(
         elif d0 > 0 and d1 < d0:
             rho = d1 / d0
             tail = d1 * rho / (1.0 - rho)
-            slowest = max(slowest, rho)
+            slowest = max(slowest, rho ** (1.0 / every))
         else:
             tail = math.inf
             slowest = 1.0
@@ -272,13 +289,14 @@ def settle(
     attempts = 0
     while True:
         attempts += 1
-        tstart = (periods - KEPT_PERIODS) * period
+        every = spacing(periods)
+        tstart = (periods - max(KEPT_PERIODS, 2 * every + 1)) * period
         time, vectors, version = run_periods(periods, tstart)
         total += periods
         end = periods * period
         residual, drift, rho = judge(time, watch(vectors), period=period, end=end,
                                      harmonics=harmonics,
-                                     noise=NOISE_FRACTION * settings.tolerance)
+                                     noise=NOISE_FRACTION * settings.tolerance, every=every)
         converged = drift <= settings.tolerance
         if converged or periods >= settings.max_periods:
             return SteadyState(
