@@ -180,7 +180,8 @@ class TransientRequest:
         for number, line in enumerate(lines[1:], start=2):
             words = line.split()
             card = words[0].lower() if words else ""
-            if card in _CARDS_REFUSED:
+            # ngspice opens a control block on any card that starts with .control (or .endc)
+            if card in _CARDS_REFUSED or card.startswith((".control", ".endc")):
                 raise InputError(
                     f"{name}: netlist line {number} holds {words[0]}, which the engine adds "
                     "itself; remove analysis cards, .control blocks and .end"

@@ -37,6 +37,12 @@ def write_atomic(path: Path, data: bytes | str) -> None:
     """Write a file through a temporary sibling and rename, so a reader never sees half of it."""
     path = Path(path)
     payload = data.encode() if isinstance(data, str) else data
+    for parent in (path.parent, *path.parent.parents):
+        if parent.exists():
+            if not parent.is_dir():
+                raise InputError(f"cannot write {path}: {parent} is a file, not a folder; "
+                                 "choose another path")
+            break
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
@@ -45,6 +51,9 @@ def write_atomic(path: Path, data: bytes | str) -> None:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(payload)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; results are ordinary files
         os.replace(tmp, path)
     except OSError as exc:
         Path(tmp).unlink(missing_ok=True)

@@ -83,7 +83,10 @@ def format_number(value: float, digits: int = 4) -> str:
     exp3 = int(math.floor(math.log10(abs(value)) / 3))
     exp3 = max(-5, min(4, exp3))
     names = {-5: "f", -4: "p", -3: "n", -2: "u", -1: "m", 0: "", 1: "k", 2: "meg", 3: "g", 4: "t"}
-    scaled = value / 10.0 ** (3 * exp3)
+    scaled = float(f"{value / 10.0 ** (3 * exp3):.{digits}g}")
+    if abs(scaled) >= 1000 and exp3 < 4:  # rounding carried into the next prefix (0.99999 -> 1)
+        exp3 += 1
+        scaled = float(f"{value / 10.0 ** (3 * exp3):.{digits}g}")
     return f"{scaled:.{digits}g}{names[exp3]}"
 
 

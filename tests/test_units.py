@@ -31,3 +31,8 @@ def test_parse_number_refuses(text):
 @given(st.floats(min_value=-1e14, max_value=1e14, allow_nan=False).filter(lambda x: abs(x) > 1e-14))
 def test_format_number_round_trips(x):
     assert parse_number(format_number(x, digits=15)) == pytest.approx(x, rel=1e-13)
+
+
+def test_format_number_rounding_carries_into_next_prefix():
+    assert format_number(0.99999) == "1"
+    assert format_number(999999.0) == "1meg"

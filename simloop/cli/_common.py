@@ -16,28 +16,33 @@ def number(what: str, *, positive: bool = False, nonnegative: bool = False) -> C
 
     def convert(text: str) -> float:
         try:
-            value = parse_number(text, what=what)
-        except InputError as exc:
-            raise argparse.ArgumentTypeError(str(exc)) from None
+            value = parse_number(text, what="value")
+        except InputError as exc:  # argparse names the option itself ("argument --duty: ...")
+            raise argparse.ArgumentTypeError(str(exc).removeprefix("value: ")) from None
         if positive and not value > 0:
-            raise argparse.ArgumentTypeError(f"{what} must be > 0, got {text}")
+            raise argparse.ArgumentTypeError(f"must be > 0, got {text}")
         if nonnegative and value < 0:
-            raise argparse.ArgumentTypeError(f"{what} must be >= 0, got {text}")
+            raise argparse.ArgumentTypeError(f"must be >= 0, got {text}")
         return value
 
     convert.__name__ = what
     return convert
 
 
-def harmonics_count(text: str) -> int:
-    """argparse type: the number of harmonics N, 1..10000."""
+def harmonics_count(text: str, *, limit: int = 10000) -> int:
+    """argparse type: the number of harmonics N, 1..limit."""
     try:
         n = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"--harmonics takes a whole number 1..10000, got {text!r}") from None
-    if not 1 <= n <= 10000:
-        raise argparse.ArgumentTypeError(f"--harmonics takes a whole number 1..10000, got {n}")
+        raise argparse.ArgumentTypeError(f"takes a whole number 1..{limit}, got {text!r}") from None
+    if not 1 <= n <= limit:
+        raise argparse.ArgumentTypeError(f"takes a whole number 1..{limit}, got {n}")
     return n
+
+
+def engine_harmonics_count(text: str) -> int:
+    """argparse type: harmonics of a simulated spectrum, 1..1000."""
+    return harmonics_count(text, limit=1000)
 
 
 class Outputs:

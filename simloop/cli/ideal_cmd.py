@@ -63,6 +63,8 @@ def parameters_from_args(args: argparse.Namespace) -> dict[str, Any]:
         params.update(amplitude=args.amplitude, delay=args.delay, bipolar=args.bipolar)
     elif kind == "truncated-cosine":
         angle = _need(args, "conduction-angle", kind)
+        if not 0.0 < angle <= 360.0:
+            raise InputError(f"--conduction-angle must be in (0, 360] degrees, got {angle:g}")
         params.update(peak=args.amplitude, conduction_angle=math.radians(angle),
                       reference=args.reference)
     elif kind == "trapezoid":

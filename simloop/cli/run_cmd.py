@@ -16,7 +16,7 @@ from pathlib import Path
 
 from ..errors import InputError
 from ..vocab import RESAMPLE_METHODS, WAVEFORM_KINDS
-from ._common import Outputs, harmonics_count, number, write_json
+from ._common import Outputs, engine_harmonics_count, number, write_json
 
 #: Above these the drive is no longer safety-extra-low voltage (30 V rms / 42.4 V peak AC,
 #: 60 V DC: the ES1 limits of IEC 62368-1 [from memory]).
@@ -44,8 +44,8 @@ def add_engine_arguments(p: argparse.ArgumentParser) -> None:
                    help="drive amplitude used for the ideal and the estimate [V] (default: from the circuit)")
     p.add_argument("--ideal", choices=WAVEFORM_KINDS, metavar="KIND",
                    help="ideal counterpart: " + ", ".join(WAVEFORM_KINDS) + " (default: the circuit's)")
-    p.add_argument("--harmonics", default=10, type=harmonics_count, metavar="N",
-                   help="highest harmonic order N (default 10)")
+    p.add_argument("--harmonics", default=10, type=engine_harmonics_count, metavar="N",
+                   help="highest harmonic order N, 1..1000 (default 10)")
     p.add_argument("--tmax", type=number("--tmax", positive=True), metavar="S",
                    help="engine maximum time step [s] (default T/max(2000, 200 N))")
     p.add_argument("--tolerance", type=number("--tolerance", positive=True), default=1e-6,
@@ -112,7 +112,7 @@ def format_result(result) -> str:
     choices = ", ".join(f"{k}={v}" for k, v in r.choices.items())
     lines = [
         f"{r.circuit}: {r.title}",
-        f"  parameters  {params}" + (f"; {choices}" if choices else ""),
+        f"  parameters  {params or '-'}" + (f"; {choices}" if choices else ""),
         f"  probe {r.probe}   f0 {format_si(r.fundamental_hz, 'Hz')}   engine {r.engine_version}   "
         f"ideal {r.ideal_kind or '-'}   estimate {r.estimate_kind or '-'}",
         f"  steady state {'reached' if st.converged else 'NOT reached'} after {st.periods_simulated} "
