@@ -16,10 +16,13 @@ FROM python:3.11-slim-bookworm
 
 ARG EXTRAS=dask
 
+# DASK_DISTRIBUTED__WORKER__DAEMON=False: a Dask worker started from this image may start the
+# engine's own worker processes (daemonic processes may not have children).
 ENV PYTHONDONTWRITEBYTECODE=1 \
     PYTHONUNBUFFERED=1 \
     PIP_DISABLE_PIP_VERSION_CHECK=1 \
-    NGSPICE_LIBRARY_PATH=libngspice.so.0
+    NGSPICE_LIBRARY_PATH=libngspice.so.0 \
+    DASK_DISTRIBUTED__WORKER__DAEMON=False
 
 # System packages: every name in the list ('#' comments stripped), nothing else.
 COPY packaging/debian-packages.txt /tmp/debian-packages.txt
