@@ -23,8 +23,10 @@ from ..errors import SimloopError
 COMMANDS: dict[str, tuple[str, str]] = {
     "ideal": ("simloop.cli.ideal_cmd", "closed-form spectrum of an ideal waveform"),
     "run": ("simloop.cli.run_cmd", "simulate a circuit and compare its harmonics with theory"),
+    "sweep": ("simloop.cli.sweep_cmd", "sweep load, drive, model or any parameter over a grid"),
     "netlists": ("simloop.cli.netlists_cmd", "list the built-in circuits and their parameters"),
     "demo": ("simloop.cli.demo_cmd", "run the built-in demonstration scenarios"),
+    "check": ("simloop.cli.check_cmd", "check design variants against harmonic and output limits"),
 }
 
 EXIT_OK = 0
