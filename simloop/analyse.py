@@ -17,11 +17,13 @@ from numpy.typing import NDArray
 from .compare import HarmonicRow, compare_spectra, conduction_angle_deg, conversion_efficiency
 from .errors import InputError
 from .fourier import spectrum_from_samples, thd, thd_rms, waveform_metrics
-from .netlist import CircuitTemplate, RenderedCircuit, device_models, element_nodes, load_circuit
-from .netlist import model_parameters
+from .netlist import CircuitTemplate, RenderedCircuit, StorageElement, device_models
+from .netlist import element_nodes, load_circuit, model_parameters, storage_elements
+from .netlist import with_initial_conditions
 from .probe import Probe, parse_probe
 from .spectrum import Spectrum
-from .steady import SteadySettings, SteadyState, default_tmax, settle
+from .steady import NOISE_FRACTION, SteadySettings, SteadyState, default_tmax, judge, settle
+from .steady import shoot
 from .vocab import WAVEFORM_KINDS, ResampleMethod
 
 _HEAVY = True  # runs the engine (PySpice in worker processes) when called
@@ -285,6 +287,83 @@ def _has_fundamental(spectrum: Spectrum) -> bool:
     return bool(spectrum.amplitude[1] > 1e-6 * np.max(np.abs(spectrum.amplitude)))
 
 
+def _states(rendered: RenderedCircuit) -> tuple[StorageElement, ...]:
+    """Capacitors and inductors whose value is not a plain zero (a zero one holds no state)."""
+    from .units import parse_number
+
+    kept = []
+    for element in storage_elements(rendered.text):
+        raw = element.value.strip("{}").strip().lower()
+        value = rendered.parameters.get(raw)
+        if value is None:
+            try:
+                value = parse_number(raw)
+            except InputError:
+                value = None  # an expression: keep it
+        if value != 0.0:
+            kept.append(element)
+    return tuple(kept)
+
+
+def find_steady_state(run_periods, run_states, storage, *, fundamental_hz: float, watch,
+                      settings: SteadySettings, tmax: float, harmonics: int) -> SteadyState:
+    """Settle, and where the first attempt is not enough, shoot (then verify, or fall back).
+
+    ``auto`` does not shoot circuits with coupled inductors: setting the winding currents one at
+    a time excites the leakage inductances, which makes each period run slow and Newton's
+    method unreliable (measured on the centre-tap rectifier with a reservoir: 5 iterations,
+    no convergence, 5x the time of plain settling). ``shoot`` tries anyway.
+    """
+    from dataclasses import replace
+
+    coupled = any(e.kind == "L" and e.coupled for e in storage)
+    if not storage:  # no slow state: a change that does not decay is the engine's noise
+        return settle(run_periods, fundamental_hz=fundamental_hz, watch=watch, settings=settings,
+                      tmax=tmax, harmonics=harmonics, noise_fraction=1.0)
+    if settings.method == "settle" or (settings.method == "auto" and coupled):
+        return settle(run_periods, fundamental_hz=fundamental_hz, watch=watch, settings=settings,
+                      tmax=tmax, harmonics=harmonics)
+    if settings.method == "shoot":  # a short run only for the first guess, then shoot
+        first = settle(run_periods, fundamental_hz=fundamental_hz, watch=watch,
+                       settings=replace(settings, first_periods=4, max_periods=4),
+                       tmax=tmax, harmonics=harmonics)
+    else:
+        first = settle(run_periods, fundamental_hz=fundamental_hz, watch=watch,
+                       settings=replace(settings, max_periods=settings.first_periods),
+                       tmax=tmax, harmonics=harmonics)
+        if first.converged:
+            return first
+    period = 1.0 / fundamental_hz
+    traces = [e.read(first.vectors) for e in storage]
+    x0 = np.array([float(np.asarray(tr)[-1]) for tr in traces])
+    scale = np.array([float(np.max(np.abs(tr))) for tr in traces])
+    scale = np.maximum(scale, 1e-9 * max(float(scale.max()), 1e-30))
+    outcome = shoot(run_states, x0, scale=scale, tolerance=settings.tolerance)
+    engine_periods = first.engine_periods + outcome.engine_periods
+    why = f"residual {outcome.residual:.1e} after {outcome.iterations} iterations"
+    if outcome.converged:
+        check = 3
+        ((time, vectors, version, _),) = run_states([outcome.state], check)
+        engine_periods += check
+        residual, drift, _ = judge(time, watch(vectors), period=period, end=time[-1],
+                                   harmonics=harmonics, noise=NOISE_FRACTION * settings.tolerance)
+        if drift <= settings.tolerance:
+            return SteadyState(
+                time=time, vectors=vectors, periods_simulated=check,
+                engine_periods=engine_periods, converged=True, residual=residual, drift=drift,
+                tmax=tmax, engine_version=version, attempts=first.attempts + 1,
+                method="shooting", iterations=outcome.iterations,
+                shooting_residual=outcome.residual)
+        why = f"its periodic state did not verify (change still to come {drift:.1e})"
+    fallback = settle(run_periods, fundamental_hz=fundamental_hz, watch=watch,
+                      settings=replace(settings, first_periods=min(4 * settings.first_periods,
+                                                                   settings.max_periods)),
+                      tmax=tmax, harmonics=harmonics)
+    return replace(fallback, engine_periods=fallback.engine_periods + engine_periods,
+                   iterations=outcome.iterations, shooting_residual=outcome.residual,
+                   fallback=f"shooting did not converge ({why}); settled by plain simulation")
+
+
 # ---------------------------------------------------------------------------- the run
 def run_circuit(
     circuit: str | CircuitTemplate,
@@ -321,7 +400,7 @@ def run_circuit(
     SimulationError
         When the engine fails.
     """
-    from .engine import TransientRequest, run_transient
+    from .engine import TransientRequest, run_transient, shared_pool
 
     settings = settings or RunSettings()
     template = circuit if isinstance(circuit, CircuitTemplate) else load_circuit(circuit)
@@ -334,8 +413,10 @@ def run_circuit(
     ideal_kind = settings.ideal_kind or template.ideal_kind
     harmonics = settings.harmonics
     conduction = tuple(template.conduction_probes)
+    storage = _states(rendered)
     saves = sorted({*probe.save_vectors(), *(s for p in conduction for s in p.save_vectors()),
-                    *_power_probes(template, rendered)})
+                    *_power_probes(template, rendered),
+                    *(s for e in storage for s in e.save_vectors())})
     tmax = settings.steady.tmax or default_tmax(f0, harmonics)
     period = 1.0 / f0
     params = tuple(sorted(rendered.parameters.items()))
@@ -351,11 +432,28 @@ def run_circuit(
         )
         return trace.time, trace.vectors, trace.engine_version
 
+    def run_states(states, periods: int):
+        engine = pool if pool is not None else shared_pool()
+        futures = [
+            engine.submit(TransientRequest(
+                netlist=with_initial_conditions(
+                    rendered.text, {e.name: float(v) for e, v in zip(storage, x)}),
+                stop=periods * period, step=tmax, tmax=tmax, uic=True, save=tuple(saves),
+                timeout=settings.steady.timeout, circuit=template.name, parameters=params))
+            for x in states
+        ]
+        out = []
+        for future in futures:
+            trace = future.result()
+            end = np.array([float(np.asarray(e.read(trace.vectors))[-1]) for e in storage])
+            out.append((trace.time, trace.vectors, trace.engine_version, end))
+        return out
+
     def watch(vectors):
         return [probe.evaluate(vectors), *(p.evaluate(vectors) for p in conduction)]
 
-    steady = settle(run_periods, fundamental_hz=f0, watch=watch, settings=settings.steady,
-                    tmax=tmax, harmonics=harmonics)
+    steady = find_steady_state(run_periods, run_states, storage, fundamental_hz=f0, watch=watch,
+                               settings=settings.steady, tmax=tmax, harmonics=harmonics)
     time = steady.time
     wave = probe.evaluate(steady.vectors)
     simulated = spectrum_from_samples(time, wave, fundamental_hz=f0, harmonics=harmonics,
@@ -365,6 +463,8 @@ def run_circuit(
     ideal = None
     ideal_params: dict[str, Any] = {}
     notes = list(rendered.notes) if not template.builtin else []
+    if steady.fallback:
+        notes.append(steady.fallback)
     if ideal_kind is not None and amplitude is not None:
         from .ideal import ideal_spectrum
 

@@ -1095,6 +1095,11 @@ def _default_pool() -> EnginePool:
         return _DEFAULT_POOL
 
 
+def shared_pool() -> EnginePool:
+    """The process-wide pool of one engine worker (started on first use, closed at exit)."""
+    return _default_pool()
+
+
 def run_transient(request: TransientRequest, *, pool: EnginePool | None = None) -> Trace:
     """Run one ngspice transient analysis in a worker process.
 

@@ -26,7 +26,7 @@ import tomllib
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Literal
+from typing import Any, Literal
 
 from .errors import InputError, NetlistRefused
 from .probe import Probe, check_probe_against_netlist, parse_probe
@@ -709,6 +709,72 @@ def element_nodes(text: str, name: str) -> tuple[str, ...]:
         if tokens[0] == wanted:
             return tuple(tokens[1:3])
     raise InputError(f"no element {name!r} in the circuit")
+
+
+@dataclass(frozen=True, slots=True)
+class StorageElement:
+    """A top-level capacitor or inductor: its state is a voltage (C) or a current (L)."""
+
+    name: str
+    kind: Literal["C", "L"]
+    plus: str
+    minus: str
+    value: str
+    coupled: bool = False
+    """An inductor named in a K (mutual coupling) card."""
+
+    def save_vectors(self) -> tuple[str, ...]:
+        """Engine save expressions needed to read the state."""
+        if self.kind == "L":
+            return (f"i({self.name})",)
+        return tuple(f"v({node})" for node in (self.plus, self.minus) if node != "0")
+
+    def read(self, vectors: Mapping[str, Any]) -> Any:
+        """The state over the engine's time points: v(plus) - v(minus) [V], or i(L) [A]."""
+        if self.kind == "L":
+            return vectors[f"{self.name}#branch"]
+        plus = vectors[self.plus] if self.plus != "0" else 0.0
+        minus = vectors[self.minus] if self.minus != "0" else 0.0
+        return plus - minus
+
+
+def storage_elements(text: str) -> tuple[StorageElement, ...]:
+    """Top-level capacitors and inductors of a circuit text, in netlist order.
+
+    Elements inside subcircuits are not reported (their states cannot be set from outside).
+    """
+    found: list[StorageElement] = []
+    cards = list(_top_cards(text))
+    coupled = {t for tokens in cards if tokens[0][0] == "k" for t in tokens[1:3]}
+    for tokens in cards:
+        name = tokens[0]
+        if name[0] in "cl" and len(tokens) >= 4 and not name.startswith("."):
+            found.append(StorageElement(name, "C" if name[0] == "c" else "L", tokens[1],
+                                        tokens[2], tokens[3], coupled=name in coupled))
+    return tuple(found)
+
+
+def with_initial_conditions(text: str, states: Mapping[str, float]) -> str:
+    """The circuit text with ``IC=value`` on the named capacitors and inductors.
+
+    Used with a ``uic`` transient: the engine then starts from these capacitor voltages [V] and
+    inductor currents [A] instead of the operating point. Continuation lines are joined.
+    """
+    wanted = {k.lower(): float(v) for k, v in states.items()}
+    out: list[str] = []
+    depth = 0
+    for ln in _logical_lines(text.replace("\r\n", "\n"), origin="netlist", title=True):
+        line = ln.text
+        if ln.kind == "card":
+            if ln.first.startswith(".subckt"):
+                depth += 1
+            elif ln.first.startswith(".ends"):
+                depth = max(0, depth - 1)
+            elif depth == 0 and ln.first in wanted:
+                line = re.sub(r"\s+ic\s*=\s*\S+", "", line, flags=re.IGNORECASE)
+                line = f"{line} IC={wanted[ln.first]:.17g}"
+        out.append(line)
+    return "\n".join(out) + "\n"
 
 
 def device_models(text: str, prefix: str = "d") -> dict[str, str]:

@@ -18,6 +18,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .errors import InputError
+from .vocab import STEADY_METHODS, SteadyMethod
 
 #: Periods of data kept at the end of each run at the least (first attempt: 12 periods).
 KEPT_PERIODS = 3
@@ -59,6 +60,11 @@ class SteadySettings:
         harmonics asked (see :func:`default_tmax`).
     timeout : float
         Wall-clock limit of each engine run [s].
+    method : {"auto", "settle", "shoot"}
+        ``settle``: plain simulation until periodic. ``auto``: when the first settling attempt
+        has not converged, find the periodic state of the capacitors and inductors by
+        shooting-Newton and verify it; fall back to settling if that fails. ``shoot``: shoot
+        after a short first-guess run of 4 periods, whatever it shows.
     """
 
     tolerance: float = 1e-6
@@ -66,6 +72,7 @@ class SteadySettings:
     max_periods: int = 2000
     tmax: float | None = None
     timeout: float = 120.0
+    method: SteadyMethod = "auto"
 
     def __post_init__(self) -> None:
         if not (math.isfinite(self.tolerance) and 0 < self.tolerance < 1):
@@ -83,6 +90,9 @@ class SteadySettings:
             raise InputError(f"TMAX must be a positive number of seconds, got {self.tmax!r}")
         if not (math.isfinite(self.timeout) and self.timeout > 0):
             raise InputError(f"timeout must be a positive number of seconds, got {self.timeout!r}")
+        if self.method not in STEADY_METHODS:
+            raise InputError(f"steady-state method {self.method!r} is unknown; use one of "
+                             f"{', '.join(STEADY_METHODS)}")
 
 
 @dataclass(frozen=True, slots=True)
@@ -123,6 +133,9 @@ class SteadyState:
     engine_version: str
     attempts: int
     method: str = "settle"
+    iterations: int = 0
+    shooting_residual: float | None = None
+    fallback: str | None = None
 
     def figures(self) -> dict[str, float | int | bool | str]:
         """The figures for JSON output (``steady_state`` object)."""
@@ -135,6 +148,9 @@ class SteadyState:
             "drift": self.drift,
             "tmax_s": self.tmax,
             "attempts": self.attempts,
+            "shooting_iterations": self.iterations,
+            "shooting_residual": self.shooting_residual,
+            "fallback": self.fallback,
         }
 
 
@@ -200,13 +216,16 @@ def judge(
     Notes
     -----
     For each watched waveform the complex amplitudes X = (C_0..C_N) of three periods k apart
-    (k = ``every``) give two changes d0 = X_{P-k} - X_{P-2k} and d1 = X_P - X_{P-k} (largest
-    component of each, relative to the largest amplitude). The residual is |d1|. Settling is
-    geometric near the steady state, so with r = |d1| / |d0| < 1 (the decay over k periods)
-    the change still to come is |d1| r / (1 - r). Where r >= 1 the waveform is not (yet)
-    settling and the drift is infinite, unless |d1| is already below ``noise``
-    (:data:`NOISE_FRACTION` of the tolerance): there the changes are the engine's
-    step-to-step noise rather than settling.
+    (k = ``every``), relative to the largest amplitude, give two changes d0 = X_{P-k} - X_{P-2k}
+    and d1 = X_P - X_{P-k}. The residual is max |d1|. Settling near the steady state is
+    geometric, d1 = r d0 with one real ratio r for all harmonics, whereas the engine's
+    step-to-step noise points in a random direction of the 2(N + 1)-dimensional space of the
+    harmonics. So d1 is split into its part along d0, r = Re<d0, d1> / <d0, d0>, which is the
+    settling signal, and the rest, which is noise: it does not accumulate, but the result is
+    only known to within it. With 0 < r < 1 the drift is |r d0| r / (1 - r) + max |d1 - r d0|;
+    with r <= 0 (no settling signal: noise, or a waveform that alternates between periods) it
+    is max |d1|. With r >= 1 the waveform is not settling (yet) and the drift is infinite,
+    unless max |d1| is below ``noise`` already.
     """
     residual = 0.0
     drift = 0.0
@@ -217,15 +236,21 @@ def judge(
         scale = float(np.max(np.abs(c[-1])))
         if scale == 0.0:
             continue
-        d0 = float(np.max(np.abs(c[1] - c[0]))) / scale
-        d1 = float(np.max(np.abs(c[2] - c[1]))) / scale
+        v0 = (c[1] - c[0]) / scale
+        v1 = (c[2] - c[1]) / scale
+        d1 = float(np.max(np.abs(v1)))
         residual = max(residual, d1)
+        energy = float(np.vdot(v0, v0).real)
+        r = float(np.vdot(v0, v1).real) / energy if energy > 0 else 0.0
+        signal = abs(r) * float(np.sqrt(energy))
+        rest = float(np.max(np.abs(v1 - r * v0)))  # the part of the change that is not settling
         if d1 <= noise:
             tail = d1
-        elif d0 > 0 and d1 < d0:
-            rho = d1 / d0
-            tail = d1 * rho / (1.0 - rho)
-            slowest = max(slowest, rho ** (1.0 / every))
+        elif r <= 0.0:
+            tail = d1  # not settling geometrically: the result is only known to within d1
+        elif r < 1.0:
+            tail = signal * r / (1.0 - r) + rest
+            slowest = max(slowest, r ** (1.0 / every))
         else:
             tail = math.inf
             slowest = 1.0
@@ -261,6 +286,7 @@ def settle(
     settings: SteadySettings,
     tmax: float,
     harmonics: int,
+    noise_fraction: float = NOISE_FRACTION,
 ) -> SteadyState:
     """Simulate longer until the watched waveforms stop changing from period to period.
 
@@ -278,6 +304,11 @@ def settle(
         Engine maximum step in use [s] (recorded).
     harmonics : int
         Harmonics 0..N whose settling is judged.
+    noise_fraction : float
+        Changes below this fraction of the tolerance count as engine noise whatever their
+        trend. Circuits without capacitors or inductors have no slow state, so their callers
+        pass 1.0: there a steady creep of 1e-8 per period, seen from ngspice's step control at
+        high drive, is numerical, not settling.
 
     Returns
     -------
@@ -296,7 +327,7 @@ def settle(
         end = periods * period
         residual, drift, rho = judge(time, watch(vectors), period=period, end=end,
                                      harmonics=harmonics,
-                                     noise=NOISE_FRACTION * settings.tolerance, every=every)
+                                     noise=noise_fraction * settings.tolerance, every=every)
         converged = drift <= settings.tolerance
         if converged or periods >= settings.max_periods:
             return SteadyState(
@@ -313,3 +344,142 @@ def settle(
             )
         periods = next_period_count(periods, drift, rho, settings.tolerance,
                                     max_periods=settings.max_periods)
+
+
+# ---------------------------------------------------------------------------- shooting
+RunFromStates = Callable[
+    [Sequence[NDArray[np.float64]], int],
+    list[tuple[NDArray[np.float64], Mapping[str, NDArray[np.float64]], str, NDArray[np.float64]]],
+]
+"""Engine hook for shooting: (initial states, periods) -> per state (time, vectors, version,
+final state). The runs of one call are independent and may run in parallel."""
+
+
+@dataclass(frozen=True, slots=True)
+class ShootingOutcome:
+    """How a shooting search went.
+
+    Attributes
+    ----------
+    state : array
+        The periodic initial state found (or the last iterate).
+    converged : bool
+    iterations : int
+        Newton iterations taken.
+    engine_periods : int
+        Single-period engine runs spent (the engine work, in period-equivalents).
+    residual : float
+        max_k |Phi(x)_k - x_k| / scale_k at the returned state [-].
+    history : tuple of float
+        The residual after each iteration.
+    """
+
+    state: NDArray[np.float64]
+    converged: bool
+    iterations: int
+    engine_periods: int
+    residual: float
+    history: tuple[float, ...]
+
+
+def shoot(
+    run_states: RunFromStates,
+    x0: NDArray[np.float64],
+    *,
+    scale: NDArray[np.float64],
+    tolerance: float,
+    max_iterations: int = 12,
+) -> ShootingOutcome:
+    """Find the initial state x of the storage elements for which one period maps onto itself.
+
+    Parameters
+    ----------
+    run_states : callable
+        The period map through the engine (see :data:`RunFromStates`).
+    x0 : array
+        First guess (the state at the end of a short plain transient is a good one).
+    scale : array
+        Typical magnitude of each state [V or A]: residuals and finite-difference steps are
+        relative to it.
+    tolerance : float
+        Stop when max_k |Phi(x)_k - x_k| / scale_k <= tolerance.
+    max_iterations : int
+
+    Returns
+    -------
+    ShootingOutcome
+
+    Notes
+    -----
+    Newton's method on F(x) = Phi(x) - x, where Phi maps the state at t = 0 to the state one
+    period later. From the third iteration on, an iteration that does not halve the residual
+    ends the search (the caller then falls back to plain settling). The Jacobian dPhi/dx is formed by forward differences (one period run per
+    state, all in one parallel batch) and afterwards updated with Broyden's rank-one formula,
+    J <- J + ((dF - J dx) dx^T) / (dx^T dx); it is formed afresh when a step fails to reduce
+    the residual. Steps are damped by halving (at most four times) until the residual falls.
+
+    References
+    ----------
+    T. J. Aprille and T. N. Trick, "Steady-state analysis of nonlinear circuits with periodic
+    inputs," Proc. IEEE 60(1), pp. 108-114, 1972 [from memory]. C. G. Broyden, "A class of
+    methods for solving nonlinear simultaneous equations," Math. Comp. 19, 1965 [from memory].
+    """
+    x = np.asarray(x0, dtype=float).copy()
+    scale = np.maximum(np.asarray(scale, dtype=float), 1e-12)
+    m = x.size
+    periods = 0
+    history: list[float] = []
+
+    def phi(states: Sequence[NDArray[np.float64]]) -> list[NDArray[np.float64]]:
+        nonlocal periods
+        periods += len(states)
+        return [np.asarray(r[3], dtype=float) for r in run_states(states, 1)]
+
+    def residual_of(f: NDArray[np.float64]) -> float:
+        return float(np.max(np.abs(f) / scale))
+
+    def jacobian(x: NDArray[np.float64], fx_phi: NDArray[np.float64]) -> NDArray[np.float64]:
+        steps = 1e-6 * np.maximum(scale, np.abs(x))
+        shifted = [x + steps[k] * np.eye(m)[k] for k in range(m)]
+        columns = phi(shifted)
+        return np.column_stack([(columns[k] - fx_phi) / steps[k] for k in range(m)])
+
+    phi_x = phi([x])[0]
+    f = phi_x - x
+    r = residual_of(f)
+    history.append(r)
+    jac = None
+    iterations = 0
+    while r > tolerance and iterations < max_iterations:
+        iterations += 1
+        if jac is None:
+            jac = jacobian(x, phi_x)
+        try:
+            delta = np.linalg.solve(jac - np.eye(m), -f)
+        except np.linalg.LinAlgError:
+            break
+        step = 1.0
+        improved = False
+        for _ in range(5):
+            x_new = x + step * delta
+            phi_new = phi([x_new])[0]
+            f_new = phi_new - x_new
+            r_new = residual_of(f_new)
+            if r_new < r:
+                improved = True
+                break
+            step *= 0.5
+        if not improved:
+            if jac is not None and iterations > 1:
+                jac = None  # a stale Broyden Jacobian: form it afresh and try again
+                continue
+            break
+        dx, df = x_new - x, f_new - f
+        x, phi_x, f, r = x_new, phi_new, f_new, r_new
+        history.append(r)
+        if iterations >= 3 and r > 0.5 * history[-2]:
+            break  # Newton converges fast or not at all here: stop spending engine runs
+        # Broyden's update of dF/dx = J - I, kept as J (= dPhi/dx)
+        jac = jac + np.outer((df + dx) - jac @ dx, dx) / float(dx @ dx)
+    return ShootingOutcome(state=x, converged=r <= tolerance, iterations=iterations,
+                           engine_periods=periods, residual=r, history=tuple(history))

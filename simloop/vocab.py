@@ -23,6 +23,10 @@ ResampleMethod = Literal["spline", "linear"]
 default) or ``linear`` (kept for comparisons; about 25x less accurate on engine output)."""
 RESAMPLE_METHODS: tuple[str, ...] = get_args(ResampleMethod)
 
+SteadyMethod = Literal["auto", "settle", "shoot"]
+"""How the periodic steady state is found (see :class:`simloop.steady.SteadySettings`)."""
+STEADY_METHODS: tuple[str, ...] = get_args(SteadyMethod)
+
 ProbeKind = Literal["voltage", "differential", "current"]
 PROBE_KINDS: tuple[str, ...] = get_args(ProbeKind)
 
