@@ -305,6 +305,33 @@ def _states(rendered: RenderedCircuit) -> tuple[StorageElement, ...]:
     return tuple(kept)
 
 
+def bounded(settings: SteadySettings, *, period: float, tmax: float,
+            vectors: int) -> tuple[SteadySettings, str | None]:
+    """Apply the resource bounds: refuse what cannot fit, cap ``max_periods`` to what can.
+
+    One run of P periods takes P T / TMAX engine steps and hands back about that many points of
+    each saved vector (8 bytes each). A first attempt that does not fit is refused.
+    """
+    from dataclasses import replace
+
+    steps_per_period = period / tmax
+    bytes_per_period = steps_per_period * vectors * 8.0
+    fit = min(settings.max_points / steps_per_period,
+              settings.max_output_bytes / bytes_per_period)
+    if fit < settings.first_periods:
+        raise InputError(
+            f"the engine would take {steps_per_period:.3g} steps per period (TMAX {tmax:.3g} s "
+            f"for a {period:.3g} s period), over the bound of {settings.max_points:.3g} steps or "
+            f"{settings.max_output_bytes / 2**20:.0f} MiB per run for {settings.first_periods} "
+            "periods; raise --tmax, lower --harmonics or raise the bound (--max-steps, --max-output)")
+    if fit < settings.max_periods:
+        capped = int(fit)
+        return (replace(settings, max_periods=capped),
+                f"max periods capped at {capped} by the bound of {settings.max_points:.3g} engine "
+                "steps per run")
+    return settings, None
+
+
 def find_steady_state(run_periods, run_states, storage, *, fundamental_hz: float, watch,
                       settings: SteadySettings, tmax: float, harmonics: int) -> SteadyState:
     """Settle, and where the first attempt is not enough, shoot (then verify, or fall back).
@@ -420,6 +447,8 @@ def run_circuit(
     tmax = settings.steady.tmax or default_tmax(f0, harmonics)
     period = 1.0 / f0
     params = tuple(sorted(rendered.parameters.items()))
+    steady_settings, bound_note = bounded(settings.steady, period=period, tmax=tmax,
+                                          vectors=len(saves) + 1)
 
     def run_periods(periods: int, tstart: float):
         trace = run_transient(
@@ -453,7 +482,7 @@ def run_circuit(
         return [probe.evaluate(vectors), *(p.evaluate(vectors) for p in conduction)]
 
     steady = find_steady_state(run_periods, run_states, storage, fundamental_hz=f0, watch=watch,
-                               settings=settings.steady, tmax=tmax, harmonics=harmonics)
+                               settings=steady_settings, tmax=tmax, harmonics=harmonics)
     time = steady.time
     wave = probe.evaluate(steady.vectors)
     simulated = spectrum_from_samples(time, wave, fundamental_hz=f0, harmonics=harmonics,
@@ -463,6 +492,8 @@ def run_circuit(
     ideal = None
     ideal_params: dict[str, Any] = {}
     notes = list(rendered.notes) if not template.builtin else []
+    if bound_note:
+        notes.append(bound_note)
     if steady.fallback:
         notes.append(steady.fallback)
     if ideal_kind is not None and amplitude is not None:

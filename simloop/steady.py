@@ -65,6 +65,11 @@ class SteadySettings:
         has not converged, find the periodic state of the capacitors and inductors by
         shooting-Newton and verify it; fall back to settling if that fails. ``shoot``: shoot
         after a short first-guess run of 4 periods, whatever it shows.
+    max_points : float
+        Resource bound: most engine time steps one run may take (stop / TMAX). A request for
+        more is refused before the engine sees it.
+    max_output_bytes : float
+        Resource bound: most bytes of saved vectors one run may hand back [B].
     """
 
     tolerance: float = 1e-6
@@ -73,6 +78,8 @@ class SteadySettings:
     tmax: float | None = None
     timeout: float = 120.0
     method: SteadyMethod = "auto"
+    max_points: float = 20e6
+    max_output_bytes: float = 512 * 2**20
 
     def __post_init__(self) -> None:
         if not (math.isfinite(self.tolerance) and 0 < self.tolerance < 1):
@@ -90,6 +97,10 @@ class SteadySettings:
             raise InputError(f"TMAX must be a positive number of seconds, got {self.tmax!r}")
         if not (math.isfinite(self.timeout) and self.timeout > 0):
             raise InputError(f"timeout must be a positive number of seconds, got {self.timeout!r}")
+        for name in ("max_points", "max_output_bytes"):
+            value = getattr(self, name)
+            if not (math.isfinite(value) and value >= 1):
+                raise InputError(f"{name.replace('_', ' ')} must be a number >= 1, got {value!r}")
         if self.method not in STEADY_METHODS:
             raise InputError(f"steady-state method {self.method!r} is unknown; use one of "
                              f"{', '.join(STEADY_METHODS)}")

@@ -15,7 +15,7 @@ import sys
 from pathlib import Path
 
 from ..errors import InputError
-from ..vocab import RESAMPLE_METHODS, WAVEFORM_KINDS
+from ..vocab import RESAMPLE_METHODS, STEADY_METHODS, WAVEFORM_KINDS
 from ._common import Outputs, engine_harmonics_count, number, write_json
 
 #: Above these the drive is no longer safety-extra-low voltage (30 V rms / 42.4 V peak AC,
@@ -56,6 +56,13 @@ def add_engine_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--timeout", type=number("--timeout", positive=True), metavar="S",
                    default=float(os.environ.get("SIMLOOP_TIMEOUT", "120")),
                    help="wall-clock limit of one engine run [s] (default $SIMLOOP_TIMEOUT or 120)")
+    p.add_argument("--steady", choices=STEADY_METHODS, default="auto",
+                   help="how the periodic steady state is found: auto (settle; shoot the "
+                        "capacitor and inductor states when settling is slow), settle, shoot")
+    p.add_argument("--max-steps", type=number("--max-steps", positive=True), default=20e6,
+                   metavar="N", help="resource bound: most engine time steps per run (default 20meg)")
+    p.add_argument("--max-output", type=number("--max-output", positive=True), default=512.0,
+                   metavar="MIB", help="resource bound: most vector data per run [MiB] (default 512)")
     p.add_argument("--resample", choices=RESAMPLE_METHODS, default="spline",
                    help="how engine points become a continuous period: spline (default) or linear")
 
@@ -90,7 +97,8 @@ def settings_from_args(args: argparse.Namespace):
     if args.max_periods < 12:
         raise InputError("--max-periods must be at least 12")
     steady = SteadySettings(tolerance=args.tolerance, max_periods=args.max_periods,
-                            tmax=args.tmax, timeout=args.timeout)
+                            tmax=args.tmax, timeout=args.timeout, method=args.steady,
+                            max_points=args.max_steps, max_output_bytes=args.max_output * 2**20)
     return RunSettings(harmonics=args.harmonics, probe=args.probe,
                        fundamental_hz=args.fundamental, amplitude=args.amplitude,
                        ideal_kind=args.ideal, steady=steady, method=args.resample)
@@ -115,9 +123,12 @@ def format_result(result) -> str:
         f"  parameters  {params or '-'}" + (f"; {choices}" if choices else ""),
         f"  probe {r.probe}   f0 {format_si(r.fundamental_hz, 'Hz')}   engine {r.engine_version}   "
         f"ideal {r.ideal_kind or '-'}   estimate {r.estimate_kind or '-'}",
-        f"  steady state {'reached' if st.converged else 'NOT reached'} after {st.periods_simulated} "
-        f"periods ({st.engine_periods} simulated in {st.attempts} runs); change per period "
-        f"{st.residual:.1e}, still to come {st.drift:.1e}",
+        f"  steady state {'reached' if st.converged else 'NOT reached'} "
+        + (f"by shooting ({st.iterations} Newton iterations, state residual "
+           f"{st.shooting_residual:.1e})" if st.method == "shooting"
+           else f"after {st.periods_simulated} periods")
+        + f"; engine work {st.engine_periods} periods; last change {st.residual:.1e}, "
+        f"still to come {st.drift:.1e}",
         "",
         f"  {'n':>3} {'f [Hz]':>9} {'ideal [V]':>12} {'estimate [V]':>13} {'simulated [V]':>14} "
         f"{'sim-ideal [dB]':>15} {'sim-est [dB]':>13} {'phase [deg]':>12}",
