@@ -399,6 +399,7 @@ def run_circuit(
     choices: Mapping[str, str] | None = None,
     settings: RunSettings | None = None,
     pool: Any = None,
+    transform: Any = None,
 ) -> RunResult:
     """Simulate one circuit to its periodic steady state and compare its harmonics with theory.
 
@@ -413,6 +414,9 @@ def run_circuit(
     settings : RunSettings
     pool : simloop.engine.EnginePool, optional
         Engine workers to use; a private one-worker pool otherwise.
+    transform : callable, optional
+        ``str -> str`` applied to the rendered text before the engine sees it (simloop's own
+        variants, e.g. a reduced diode model for the effect breakdown; never user input).
 
     Returns
     -------
@@ -432,6 +436,10 @@ def run_circuit(
     settings = settings or RunSettings()
     template = circuit if isinstance(circuit, CircuitTemplate) else load_circuit(circuit)
     rendered = template.render(values or {}, choices or {})
+    if transform is not None:
+        from dataclasses import replace
+
+        rendered = replace(rendered, text=transform(rendered.text))
     f0 = resolve_fundamental(template, rendered, settings.fundamental_hz)
     amplitude = resolve_amplitude(template, rendered, settings.amplitude)
     probe: Probe | None = template.probe(settings.probe) if settings.probe else template.default_probe

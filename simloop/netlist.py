@@ -777,6 +777,35 @@ def with_initial_conditions(text: str, states: Mapping[str, float]) -> str:
     return "\n".join(out) + "\n"
 
 
+def replace_model(text: str, model: str, parameters: Mapping[str, float]) -> str:
+    """The circuit text with the ``.model`` card ``model`` rewritten to hold only ``parameters``.
+
+    The model keeps its name and type, so the devices that use it are unchanged; parameters left
+    out take the engine's defaults. Continuation lines of the old card are joined first.
+
+    Raises
+    ------
+    InputError
+        If there is no such model card.
+    """
+    wanted = model.lower()
+    out: list[str] = []
+    found = False
+    for ln in _logical_lines(text.replace("\r\n", "\n"), origin="netlist", title=True):
+        line = ln.text
+        if ln.kind == "card" and ln.first == ".model":
+            tokens = [m.group(0).lower() for m in _tokens(line)]
+            if len(tokens) >= 3 and tokens[1] == wanted:
+                kind = tokens[2].upper()
+                values = " ".join(f"{k.upper()}={float(v):.17g}" for k, v in parameters.items())
+                line = f".model {tokens[1]} {kind}({values})"
+                found = True
+        out.append(line)
+    if not found:
+        raise InputError(f"no .model {model!r} in the circuit")
+    return "\n".join(out) + "\n"
+
+
 def device_models(text: str, prefix: str = "d") -> dict[str, str]:
     """``{device: model}`` of the top-level devices whose names start with ``prefix``."""
     models = _model_names(text)

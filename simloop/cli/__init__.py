@@ -24,6 +24,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "ideal": ("simloop.cli.ideal_cmd", "closed-form spectrum of an ideal waveform"),
     "run": ("simloop.cli.run_cmd", "simulate a circuit and compare its harmonics with theory"),
     "sweep": ("simloop.cli.sweep_cmd", "sweep load, drive, model or any parameter over a grid"),
+    "explain": ("simloop.cli.explain_cmd", "which effect moved each harmonic: one realism at a time"),
     "netlists": ("simloop.cli.netlists_cmd", "list the built-in circuits and their parameters"),
     "demo": ("simloop.cli.demo_cmd", "run the built-in demonstration scenarios"),
     "check": ("simloop.cli.check_cmd", "check design variants against harmonic and output limits"),

@@ -63,6 +63,7 @@ class Outputs:
         except OSError as exc:
             self.failures.append(f"cannot write {label}: {exc}")
         else:
+            sys.stdout.flush()  # keep the report and the "wrote" lines in order on a terminal
             print(f"wrote {label}", file=sys.stderr)
 
     def status(self, ok_code: int = 0) -> int:
