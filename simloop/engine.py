@@ -427,6 +427,22 @@ def _leave_quietly() -> None:
         os._exit(0)
 
 
+def _watch_parent(parent: int, period: float = 0.5) -> None:
+    """Leave (``os._exit``) as soon as the process that started this worker is gone.
+
+    A parent killed with SIGKILL cannot close its pool; its workers would linger as orphans
+    holding an engine. The worker notices because it is re-parented (``os.getppid`` changes).
+    """
+
+    def watch() -> None:
+        while True:
+            time.sleep(period)
+            if os.getppid() != parent:
+                os._exit(0)
+
+    threading.Thread(target=watch, name="simloop-parent-watch", daemon=True).start()
+
+
 def _worker_init(pool_dir: str) -> None:
     """Initializer of every engine worker: isolate, silence, start ngspice once."""
     import faulthandler
@@ -440,6 +456,7 @@ def _worker_init(pool_dir: str) -> None:
         resource.setrlimit(resource.RLIMIT_CORE, (0, hard))
     except (ImportError, ValueError, OSError):
         pass  # no core-dump limit on this platform
+    _watch_parent(os.getppid())
     pid = os.getpid()
     log = open(os.path.join(pool_dir, f"w-{pid}.log"), "ab", buffering=0)  # noqa: SIM115
     _STATE.log = log

@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import InputError
+from .files import clean_json
 
 SCHEMA_VERSION = "1"
 
@@ -57,7 +58,8 @@ _HARMONIC_COLUMNS = ("n", "freq_hz", "ideal_v", "ideal_phase_deg", "estimate_v",
 
 
 def _dumps(value: Any) -> str:
-    return json.dumps(value, sort_keys=True, allow_nan=False)
+    """Strict JSON; NaN and infinities (a -inf dB level of a zero amplitude) become null."""
+    return json.dumps(clean_json(value), sort_keys=True, allow_nan=False)
 
 
 class ResultStore:
@@ -83,6 +85,12 @@ class ResultStore:
             self._db.execute("PRAGMA journal_mode=WAL")
             self._db.execute("PRAGMA synchronous=NORMAL")
             self._db.execute("PRAGMA foreign_keys=ON")
+            tables = {r[0] for r in self._db.execute(
+                "SELECT name FROM sqlite_master WHERE type='table'")}
+            if tables and "meta" not in tables:
+                self._db.close()
+                raise InputError(f"{self.path} is an SQLite file but not a simloop result store "
+                                 "(no meta table); choose another --store")
             self._db.executescript(_SCHEMA)
             row = self._db.execute("SELECT value FROM meta WHERE key='schema'").fetchone()
             if row is None:
