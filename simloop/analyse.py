@@ -46,6 +46,11 @@ class RunSettings:
     steady : SteadySettings
     method : {"spline", "linear"}
         Resampling of the engine's points before the Fourier integral.
+    mains_class : {"A", "D"} or None
+        Check the source current's harmonics against IEC 61000-3-2 Class A or D (values as
+        reproduced in secondary sources; see :mod:`simloop.mains`).
+    mains_power_w : float or None
+        Active input power for the Class D limits [W]; None: computed from the spectra.
     """
 
     harmonics: int = 10
@@ -55,6 +60,8 @@ class RunSettings:
     ideal_kind: str | None = None
     steady: SteadySettings = field(default_factory=SteadySettings)
     method: ResampleMethod = "spline"
+    mains_class: str | None = None
+    mains_power_w: float | None = None
 
     def __post_init__(self) -> None:
         if not isinstance(self.harmonics, int) or not 1 <= self.harmonics <= 1000:
@@ -63,6 +70,8 @@ class RunSettings:
             value = getattr(self, name)
             if value is not None and not (math.isfinite(value) and value > 0):
                 raise InputError(f"{name} must be a positive finite number, got {value!r}")
+        if self.mains_class is not None and self.mains_class not in ("A", "D"):
+            raise InputError(f"mains class {self.mains_class!r} is unknown; use A or D")
         if self.ideal_kind is not None and self.ideal_kind not in WAVEFORM_KINDS:
             raise InputError(
                 f"ideal kind {self.ideal_kind!r} is unknown; use one of {', '.join(WAVEFORM_KINDS)}"
@@ -273,6 +282,40 @@ def _source_power(template: CircuitTemplate, rendered: RenderedCircuit, time, ve
     return float(-np.trapezoid(v[mask] * i[mask], time[mask]) / (time[mask][-1] - time[mask][0]))
 
 
+def _source_spectra(template, rendered, time, vectors, f0, harmonics, method):
+    """(voltage, line current) spectra at the power source; the current drawn from it."""
+    source = template.roles.get("power_source")
+    if source is None:
+        return None
+    plus, minus = element_nodes(rendered.text, str(source))
+    v = parse_probe(f"v({plus},{minus})" if minus != "0" else f"v({plus})").evaluate(vectors)
+    i = -vectors[f"{source}#branch"]  # SPICE's branch current flows into the + terminal
+    args = dict(fundamental_hz=f0, harmonics=harmonics, periods=1, method=method)
+    return spectrum_from_samples(time, v, **args), spectrum_from_samples(time, i, **args)
+
+
+def _page_check(template, rendered, time, vectors, f0, harmonics, method, simulated, load):
+    """Page's bound for a single-diode circuit: power into the diode at f0 vs load power at n."""
+    from .bounds import conversion_to_harmonics
+    from .compare import harmonic_powers
+
+    diodes = device_models(rendered.text, "d")
+    if len(diodes) != 1 or len(template.conduction_probes) != 1 or load is None:
+        return None
+    anode, cathode = element_nodes(rendered.text, next(iter(diodes)))
+    volts = parse_probe(f"v({anode},{cathode})" if cathode != "0" else f"v({anode})")
+    if not all(name in vectors for name in (anode, cathode) if name != "0"):
+        return None
+    args = dict(fundamental_hz=f0, harmonics=harmonics, periods=1, method=method)
+    v_d = spectrum_from_samples(time, volts.evaluate(vectors), **args)
+    i_d = spectrum_from_samples(time, template.conduction_probes[0].evaluate(vectors), **args)
+    try:
+        return conversion_to_harmonics(element_voltage=v_d, element_current=i_d,
+                                       load_power_w=harmonic_powers(simulated, load_ohm=load))
+    except InputError:
+        return None
+
+
 def _power_probes(template: CircuitTemplate, rendered: RenderedCircuit) -> tuple[str, ...]:
     source = template.roles.get("power_source")
     if source is None:
@@ -449,8 +492,12 @@ def run_circuit(
     harmonics = settings.harmonics
     conduction = tuple(template.conduction_probes)
     storage = _states(rendered)
+    diode_nodes: set[str] = set()
+    single = device_models(rendered.text, "d")
+    if len(single) == 1:
+        diode_nodes = {f"v({n})" for n in element_nodes(rendered.text, next(iter(single))) if n != "0"}
     saves = sorted({*probe.save_vectors(), *(s for p in conduction for s in p.save_vectors()),
-                    *_power_probes(template, rendered),
+                    *_power_probes(template, rendered), *diode_nodes,
                     *(s for e in storage for s in e.save_vectors())})
     tmax = settings.steady.tmax or default_tmax(f0, harmonics)
     period = 1.0 / f0
@@ -500,7 +547,7 @@ def run_circuit(
     ideal = None
     ideal_params: dict[str, Any] = {}
     notes = list(rendered.notes) if not template.builtin else []
-    if bound_note:
+    if bound_note and not steady.converged:
         notes.append(bound_note)
     if steady.fallback:
         notes.append(steady.fallback)
@@ -543,6 +590,32 @@ def run_circuit(
     if p_src is not None and p_src > 0 and load is not None and probe == template.default_probe:
         eff = conversion_efficiency(simulated, load_ohm=load, source_power_w=p_src)
         metrics["efficiency"] = {str(n): float(e) for n, e in enumerate(eff)}
+        page = _page_check(template, rendered, time, steady.vectors, f0, harmonics,
+                           settings.method, simulated, load)
+        if page is not None:
+            metrics["page"] = page.to_dict()
+            if page.exceeds:
+                notes.append("a conversion efficiency exceeds Page's 1/n^2 bound for positive "
+                             "resistors: check the circuit for reactive or active elements")
+    if settings.mains_class is not None:
+        from .mains import line_current_check
+
+        spectra = _source_spectra(template, rendered, time, steady.vectors, f0, harmonics,
+                                  settings.method)
+        if spectra is None:
+            raise InputError(f"{template.name}: the mains check needs the power source "
+                             "(roles.power_source in the metadata)")
+        order = min(40, harmonics)
+        if order < 2:
+            raise InputError("the mains check needs --harmonics 2 or more (40 covers the standard)")
+        verdict = line_current_check(spectra[1], supply_voltage=spectra[0],
+                                     limit_class=settings.mains_class,
+                                     power_w=settings.mains_power_w, max_order=order)
+        metrics["mains"] = verdict.to_dict()
+        metrics["power_factor"] = verdict.power_factor
+        metrics["displacement_factor"] = verdict.displacement_factor
+        if order < 40:
+            notes.append(f"line-current orders above {order} not checked: raise --harmonics to 40")
     last = time >= time[-1] - period * (1 + 1e-12)
     return RunResult(
         circuit=template.name,

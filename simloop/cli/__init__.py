@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 from collections.abc import Sequence
 
@@ -84,4 +85,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_ERROR
     except KeyboardInterrupt:
         print(f"simloop {args.command}: interrupted", file=sys.stderr)
+        return EXIT_ERROR
+    except Exception as exc:  # a bug: still one line; SIMLOOP_DEBUG=1 shows the traceback
+        if os.environ.get("SIMLOOP_DEBUG"):
+            raise
+        print(f"simloop {args.command}: internal error: {type(exc).__name__}: {exc} (a bug: "
+              "please report it; SIMLOOP_DEBUG=1 shows the traceback)", file=sys.stderr)
         return EXIT_ERROR

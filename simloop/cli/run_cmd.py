@@ -63,6 +63,11 @@ def add_engine_arguments(p: argparse.ArgumentParser) -> None:
                    metavar="N", help="resource bound: most engine time steps per run (default 20meg)")
     p.add_argument("--max-output", type=number("--max-output", positive=True), default=512.0,
                    metavar="MIB", help="resource bound: most vector data per run [MiB] (default 512)")
+    p.add_argument("--mains-class", choices=("A", "D"),
+                   help="check the source current against IEC 61000-3-2 Class A or D limits "
+                        "(values from secondary sources; use --harmonics 40)")
+    p.add_argument("--mains-power", type=number("--mains-power", positive=True), metavar="W",
+                   help="active input power for the Class D limits [W] (default: from the spectra)")
     p.add_argument("--resample", choices=RESAMPLE_METHODS, default="spline",
                    help="how engine points become a continuous period: spline (default) or linear")
 
@@ -101,7 +106,8 @@ def settings_from_args(args: argparse.Namespace):
                             max_points=args.max_steps, max_output_bytes=args.max_output * 2**20)
     return RunSettings(harmonics=args.harmonics, probe=args.probe,
                        fundamental_hz=args.fundamental, amplitude=args.amplitude,
-                       ideal_kind=args.ideal, steady=steady, method=args.resample)
+                       ideal_kind=args.ideal, steady=steady, method=args.resample,
+                       mains_class=args.mains_class, mains_power_w=args.mains_power)
 
 
 def _fmt(value, width: int, spec: str = ".6g") -> str:
@@ -152,6 +158,21 @@ def format_result(result) -> str:
         eff = m["efficiency"]
         shown = ", ".join(f"n={n}: {100 * e:.3g} %" for n, e in list(eff.items())[:6])
         lines.append(f"  conversion efficiency (load power at n / source power): {shown}")
+    if "page" in m:
+        rows = m["page"]["orders"]
+        shown = ", ".join(f"n={row['order']}: {100 * row['efficiency']:.3g} % (<= "
+                          f"{100 * row['page_bound']:.3g} %)" for row in rows if 2 <= row["order"] <= 4)
+        lines.append(f"  Page's bound (power into the diode at f0 -> load at n): {shown}")
+    if "mains" in m:
+        mv = m["mains"]
+        worst = min((row for row in mv["orders"] if row["limit_a_rms"] is not None),
+                    key=lambda row: row["margin_a"], default=None)
+        verdict = "PASS" if mv["passed"] else "FAIL"
+        lines.append(f"  line current vs IEC 61000-3-2 Class {mv['limit_class']}: {verdict}"
+                     + (f" (worst order {worst['order']}: {worst['current_a_rms']:.4g} A rms, "
+                        f"limit {worst['limit_a_rms']:.4g} A)" if worst else "")
+                     + (f", power factor {mv['power_factor']:.4f}" if mv.get("power_factor") else ""))
+        lines.append(f"  ({mv['source_note']})")
     for note in r.notes:
         lines.append(f"  note: {note}")
     return "\n".join(lines)
