@@ -76,6 +76,10 @@ Metrics are read from the steady-state period of the circuit's probe:
 - ``peak_v``, ``trough_v`` [V]: largest and smallest value over one period
 - ``thd`` [1]: sqrt(sum_{n=2..N} A_n^2) / A_1, a ratio (0.05 = 5 %)
 - ``conduction_angle_deg`` [deg]: diode conduction angle (circuits with conduction probes)
+- ``power_factor``, ``displacement_factor`` [1] and ``mains_margin_a`` [A] (the smallest margin of
+  the line current's orders under their IEC 61000-3-2 limits, as reproduced in secondary
+  sources): need ``[settings] mains_class = "A"`` or ``"D"`` (and ``mains_power`` [W] for a
+  given Class D power; default: from the spectra), and ``harmonics = 40`` to cover the standard
 - ``hN_v`` [V]: peak amplitude A_N (``h0_v`` is the signed mean A0)
 - ``hN_dbv`` [dBV]: 20 log10(A_N / sqrt 2), re 1 V rms; N = 0: 20 log10 |A0|
 - ``hN_dbc`` [dBc]: 20 log10(A_N / A_c), carrier c = the limit's ``carrier`` (default 1)
@@ -194,6 +198,10 @@ SCALAR_METRICS: dict[str, tuple[str, str, bool]] = {
     "trough_v": ("V", "smallest value over one period", False),
     "thd": ("1", "sqrt(sum n=2..N A_n^2) / A_1, a ratio", True),
     "conduction_angle_deg": ("deg", "diode conduction angle", True),
+    "power_factor": ("1", "P / (V_rms I_rms) at the power source (needs [settings] mains_class)", True),
+    "displacement_factor": ("1", "cos of the fundamental's angle (needs [settings] mains_class)", False),
+    "mains_margin_a": ("A", "smallest margin of the line current under IEC 61000-3-2 limits "
+                            "(needs [settings] mains_class)", False),
 }
 
 #: Per-harmonic forms ``hN_<form>``: form -> (unit, meaning).
@@ -210,7 +218,8 @@ _HARMONIC = re.compile(r"h(\d{1,4})_(v|dbv|dbc|delta_db|efficiency)")
 _TOP_KEYS = ("title", "description", "circuit", "settings", "parameters", "corners", "corner",
              "limit")
 _SETTINGS_KEYS = ("harmonics", "probe", "fundamental", "amplitude", "ideal", "tolerance",
-                  "max_periods", "tmax", "timeout", "resample", "steady")
+                  "max_periods", "tmax", "timeout", "resample", "steady", "mains_class",
+                  "mains_power")
 _LIMIT_KEYS = ("metric", "min", "max", "name", "carrier", "override")
 _OVERRIDE_KEYS = ("where", "corner", "min", "max", "skip")
 
@@ -576,6 +585,12 @@ def metric_value(metric: Metric, point: Mapping[str, Any]) -> tuple[float | None
     3.0103 -20.0
     """
     metrics = point.get("metrics") or {}
+    if metric.form == "scalar" and metric.name == "mains_margin_a":
+        mains = metrics.get("mains")
+        if not mains:
+            return None, "not available: set [settings] mains_class = \"A\" or \"D\""
+        margins = [row["margin_a"] for row in mains["orders"] if row["limit_a_rms"] is not None]
+        return _finite(min(margins), metric.name) if margins else (None, "no limited orders")
     if metric.form == "scalar":
         value = metrics.get(metric.name)
         if value is None:
@@ -958,6 +973,16 @@ def _read_settings(r: _Reader, raw: Any, template: CircuitTemplate) -> RunSettin
             if not value > 0:
                 raise r.fail(base + (key,), f"must be > 0, got {value:g}")
             run_kw[target] = value
+    if "mains_class" in s:
+        value = r.text(s, "mains_class", base)
+        if value not in ("A", "D"):
+            raise r.fail(base + ("mains_class",), f"{value!r} is not one of A, D")
+        run_kw["mains_class"] = value
+    if "mains_power" in s:
+        value = r.number(s["mains_power"], base + ("mains_power",))
+        if not value > 0:
+            raise r.fail(base + ("mains_power",), f"must be > 0, got {value:g}")
+        run_kw["mains_power_w"] = value
     if "probe" in s:
         probe = r.text(s, "probe", base)
         try:

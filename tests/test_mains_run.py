@@ -76,3 +76,25 @@ def test_mains_front_end_class_d_check_is_consistent(pool):
     assert result.metrics["power_factor"] == pytest.approx(pf, rel=1e-3)
     assert 0.3 < pf < 0.8  # a capacitor-input rectifier's poor power factor (common practice)
     assert "secondary sources" in mains["source_note"]
+
+
+def test_design_limits_on_mains_metrics(tmp_path):
+    # The mains figures are design-file metrics: a limit on power_factor and on the smallest
+    # margin under the Class D limits, evaluated against the run's own figures.
+    from simloop.design import check_designs, load_design
+
+    design = tmp_path / "front-end.toml"
+    design.write_text(
+        'circuit = "full-wave-bridge"\n'
+        '[settings]\nharmonics = 40\nmains_class = "D"\n'
+        '[parameters]\nvpk = 325\nrsrc = 2\ncres = "220u"\nrload = "1k"\n'
+        '[[limit]]\nmetric = "power_factor"\nmin = 0.3\n'
+        '[[limit]]\nmetric = "mains_margin_a"\nmin = 0\n', encoding="utf-8")
+    (outcome,) = check_designs([load_design(design)], workers=1)
+    by_metric = {v.metric: v for v in outcome.verdicts}
+    point = outcome.points[0]
+    pf = by_metric["power_factor"]
+    assert pf.value == pytest.approx(point["metrics"]["power_factor"], rel=1e-12)
+    margins = [r["margin_a"] for r in point["metrics"]["mains"]["orders"]
+               if r["limit_a_rms"] is not None]
+    assert by_metric["mains_margin_a"].value == pytest.approx(min(margins), rel=1e-12)
