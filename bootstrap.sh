@@ -36,6 +36,7 @@ ROOT="$(pwd -P)"
 VENV=.venv
 STAMP="$VENV/.simloop-setup-stamp"
 PACKAGE_LIST=packaging/debian-packages.txt
+TEST_PACKAGE_LIST=packaging/debian-test-packages.txt
 APT_UPDATED=0
 
 # Install Debian packages as root, or print the command for a non-root user and stop.
@@ -71,13 +72,18 @@ case "$PYVER" in
 esac
 
 # 2. Debian packages ------------------------------------------------------------------------
-[ -r "$PACKAGE_LIST" ] || die "$ROOT/$PACKAGE_LIST is missing: restore it from the repository"
 PACKAGES=()
-while IFS= read -r line || [ -n "$line" ]; do
-    line="${line%%#*}"
-    read -r -a words <<<"$line" || true
-    PACKAGES+=("${words[@]}")
-done <"$PACKAGE_LIST"
+read_list() {  # append the package names of list file $1 ('#' comments) to PACKAGES
+    [ -r "$1" ] || die "$ROOT/$1 is missing: restore it from the repository"
+    while IFS= read -r line || [ -n "$line" ]; do
+        line="${line%%#*}"
+        read -r -a words <<<"$line" || true
+        PACKAGES+=("${words[@]}")
+    done <"$1"
+}
+read_list "$PACKAGE_LIST"
+# The test suite also renders HTML reports in a headless browser: test mode only.
+if [ "$MODE" = test ]; then read_list "$TEST_PACKAGE_LIST"; fi
 
 if command -v dpkg-query >/dev/null 2>&1; then
     MISSING=()

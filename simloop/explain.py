@@ -63,6 +63,8 @@ class Breakdown:
     steps: tuple[Step, ...]
     parameters: Mapping[str, float]
     notes: tuple[str, ...] = ()
+    result: Any = field(default=None, repr=False, compare=False)
+    """The run of the circuit as built (the last step), a :class:`simloop.analyse.RunResult`."""
 
     @property
     def harmonics(self) -> int:
@@ -238,7 +240,7 @@ def explain_circuit(
         del ron
     return Breakdown(circuit=template.name, title=template.title, probe=last.probe,
                      fundamental_hz=f0, steps=tuple(steps), parameters=dict(last.parameters),
-                     notes=tuple(dict.fromkeys(notes)))
+                     notes=tuple(dict.fromkeys(notes)), result=last)
 
 
 def present_orders(breakdown: Breakdown, count: int = 5) -> tuple[int, ...]:

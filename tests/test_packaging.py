@@ -23,6 +23,7 @@ from pathlib import Path
 import pytest
 
 PACKAGE_LIST = "packaging/debian-packages.txt"
+TEST_PACKAGE_LIST = "packaging/debian-test-packages.txt"  # bootstrap.sh test mode only
 BASH = shutil.which("bash") or "/bin/bash"
 SHELL_OPERATORS = {"&&", "||", "|", ";", ";;", "&", "(", ")", "()"}
 
@@ -126,6 +127,7 @@ def scratch(tmp_path: Path, repo_root: Path) -> Path:
     (copy / "packaging").mkdir(parents=True)
     shutil.copy2(repo_root / "bootstrap.sh", copy / "bootstrap.sh")
     shutil.copy2(repo_root / PACKAGE_LIST, copy / PACKAGE_LIST)
+    shutil.copy2(repo_root / TEST_PACKAGE_LIST, copy / TEST_PACKAGE_LIST)
     return copy
 
 
@@ -219,7 +221,8 @@ def test_bootstrap_nonroot_prints_install_command(scratch: Path, tmp_path: Path)
     elsewhere = tmp_path / "elsewhere"
     elsewhere.mkdir()
     result = _run_bootstrap(scratch / "bootstrap.sh", "test", env=env, cwd=elsewhere)
-    expected = "sudo apt-get install -y " + " ".join(_package_list(list_path))
+    expected = "sudo apt-get install -y " + " ".join(
+        _package_list(list_path) + _package_list(scratch / TEST_PACKAGE_LIST))
     assert result.returncode == 1, result.stderr
     assert expected in result.stderr.splitlines()[-1]
     assert _log_lines(log) == []
@@ -229,7 +232,8 @@ def test_bootstrap_nonroot_prints_install_command(scratch: Path, tmp_path: Path)
 def test_bootstrap_root_installs_missing_packages(scratch: Path, tmp_path: Path) -> None:
     log, env = _stub_machine(tmp_path, uid=0, installed=False)
     result = _run_bootstrap(scratch / "bootstrap.sh", "test", env=env)
-    packages = " ".join(_package_list(scratch / PACKAGE_LIST))
+    packages = " ".join(_package_list(scratch / PACKAGE_LIST)
+                        + _package_list(scratch / TEST_PACKAGE_LIST))
     assert _log_lines(log) == [
         "DEBIAN_FRONTEND=noninteractive update",
         f"DEBIAN_FRONTEND=noninteractive install -y --no-install-recommends {packages}",
@@ -435,3 +439,18 @@ def test_ci_run_calls_bootstrap_from_repo_root(repo_root: Path, tmp_path: Path, 
     )
     assert result.returncode == status
     assert result.stdout.splitlines() == [f"{fake_repo.resolve()}|test"]
+
+
+def test_bootstrap_demo_mode_installs_no_test_packages(scratch: Path, tmp_path: Path) -> None:
+    # The browser for the report tests is a test-only need: `demo` installs the runtime list only.
+    log, env = _stub_machine(tmp_path, uid=0, installed=False)
+    _run_bootstrap(scratch / "bootstrap.sh", "demo", env=env)
+    runtime = " ".join(_package_list(scratch / PACKAGE_LIST))
+    assert _log_lines(log)[-1] == f"DEBIAN_FRONTEND=noninteractive install -y --no-install-recommends {runtime}"
+
+
+def test_dockerfile_leaves_the_test_packages_out(repo_root: Path) -> None:
+    dockerfile = (repo_root / "Dockerfile").read_text(encoding="utf-8")
+    assert TEST_PACKAGE_LIST not in dockerfile
+    for name in _package_list(repo_root / TEST_PACKAGE_LIST):
+        assert name not in dockerfile.split(), name

@@ -32,6 +32,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--summary", type=Path, metavar="PATH",
                    help="write a Markdown summary (for a pull-request comment)")
     p.add_argument("--json", type=Path, metavar="PATH", help="write every verdict as JSON")
+    p.add_argument("--report", type=Path, metavar="PATH",
+                   help="write one self-contained HTML report of every verdict")
     p.add_argument("--workers", type=int,
                    default=int(os.environ.get("SIMLOOP_WORKERS", os.cpu_count() or 1)),
                    metavar="N", help="local engine worker processes (default $SIMLOOP_WORKERS or "
@@ -123,6 +125,20 @@ def main(args: argparse.Namespace) -> int:
     if args.json:
         outputs.attempt(str(args.json),
                         lambda: write_check_json(args.json, outcomes, exit_code=code))
+    if args.report:
+        def report() -> None:
+            from ..html_report import check_report, write_report
+            from .run_cmd import CAUTION, ELV_PEAK_V
+
+            rows = [v.as_dict() for o in outcomes for v in o.verdicts]
+            high = any(
+                p.get("amplitude_v") is not None and p["amplitude_v"] > ELV_PEAK_V
+                for o in outcomes for p in o.points)
+            write_report(args.report, check_report(
+                rows, title="simloop check: " + ", ".join(o.design.name for o in outcomes),
+                caution=CAUTION if high else None))
+
+        outputs.attempt(str(args.report), report)
     return outputs.status(code)
 
 

@@ -1,6 +1,7 @@
 """Run the built-in demonstration: invented scenarios, each simulated and set beside theory.
 
-Writes, for each scenario, the printed table (.txt), the JSON result and the plot into --out.
+Writes, for each scenario, the printed table (.txt), the JSON result, the plot (.png) and a
+self-contained HTML report into --out.
 """
 
 from __future__ import annotations
@@ -36,7 +37,7 @@ def main(args: argparse.Namespace) -> int:
     from ..engine import EnginePool
     from ..errors import InputError
     from ._common import Outputs, write_atomic, write_json
-    from .run_cmd import format_result, plot_result
+    from .run_cmd import format_result, plot_result, write_run_report
 
     chosen = [s for s in SCENARIOS if args.only in (None, s[0])]
     if not chosen:
@@ -55,4 +56,5 @@ def main(args: argparse.Namespace) -> int:
             outputs.attempt(f"{base}.txt", lambda: write_atomic(base.with_suffix(".txt"), text + "\n"))
             outputs.attempt(f"{base}.json", lambda: write_json(base.with_suffix(".json"), result.to_dict()))
             outputs.attempt(f"{base}.png", lambda: plot_result(result, base.with_suffix(".png")))
+            outputs.attempt(f"{base}.html", lambda: write_run_report(result, base.with_suffix(".html")))
     return outputs.status()

@@ -22,6 +22,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     add_engine_arguments(p)
     p.add_argument("--json", type=Path, metavar="PATH", help="write the breakdown as JSON")
     p.add_argument("--plot", type=Path, metavar="PATH", help="write a PNG: one staircase per harmonic")
+    p.add_argument("--report", type=Path, metavar="PATH",
+                   help="write one self-contained HTML report: the run as built and the breakdown")
 
 
 def format_breakdown(breakdown) -> str:
@@ -64,4 +66,19 @@ def main(args: argparse.Namespace) -> int:
             save(breakdown_figure(breakdown), args.plot)
 
         outputs.attempt(str(args.plot), plot)
+    if args.report:
+        def report() -> None:
+            from ..html_report import figure_png, run_report, write_report
+            from .run_cmd import CAUTION, needs_caution, result_figure
+
+            result = breakdown.result
+            document = {**result.to_dict(), "units": {n: s.unit for n, s in template.parameters.items()
+                                                      if s.unit}}
+            figures = {"the circuit as built": figure_png(result_figure(result)),
+                       "which effect moved each harmonic": figure_png(breakdown_figure(breakdown))}
+            write_report(args.report, run_report(
+                document, figures=figures, breakdown=breakdown.to_dict(),
+                caution=CAUTION if needs_caution(result) else None))
+
+        outputs.attempt(str(args.report), report)
     return outputs.status()

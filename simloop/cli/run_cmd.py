@@ -78,6 +78,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--json", type=Path, metavar="PATH", help="write the full result as JSON")
     p.add_argument("--plot", type=Path, metavar="PATH",
                    help="write a PNG: one period simulated over ideal, and the three spectra in dBV")
+    p.add_argument("--report", type=Path, metavar="PATH",
+                   help="write one self-contained HTML report (tables, figures, cautions)")
 
 
 def split_assignments(template, assignments: list[str]) -> tuple[dict[str, float], dict[str, str]]:
@@ -191,10 +193,20 @@ def write_outputs(result, args: argparse.Namespace, outputs: Outputs) -> None:
         outputs.attempt(str(args.json), lambda: write_json(args.json, document))
     if args.plot:
         outputs.attempt(str(args.plot), lambda: plot_result(result, args.plot))
+    if getattr(args, "report", None):
+        units = getattr(args, "units", None)
+        outputs.attempt(str(args.report), lambda: write_run_report(result, args.report, units=units))
 
 
 def plot_result(result, path: Path) -> None:
-    from ..plots import comparison_figure, save
+    from ..plots import save
+
+    save(result_figure(result), path)
+
+
+def result_figure(result):
+    """One period simulated over ideal, and the spectra side by side (a matplotlib Figure)."""
+    from ..plots import comparison_figure
 
     spectra = [("ideal", result.ideal)] if result.ideal is not None else []
     if result.estimate is not None:
@@ -205,11 +217,20 @@ def plot_result(result, path: Path) -> None:
         from ..ideal import ideal_waveform
 
         ideal_wave = ideal_waveform(result.ideal_kind, result.period_time, **result.ideal_parameters)
-    fig = comparison_figure(t=result.period_time, simulated_wave=result.period_wave,
-                            ideal_wave=ideal_wave, spectra=spectra,
-                            title=f"{result.circuit}: {result.title}",
-                            probe_label=f"{result.probe} [V]")
-    save(fig, path)
+    return comparison_figure(t=result.period_time, simulated_wave=result.period_wave,
+                             ideal_wave=ideal_wave, spectra=spectra,
+                             title=f"{result.circuit}: {result.title}",
+                             probe_label=f"{result.probe} [V]")
+
+
+def write_run_report(result, path: Path, *, units=None, breakdown=None) -> None:
+    """The self-contained HTML report of one run."""
+    from ..html_report import figure_png, run_report, write_report
+
+    document = {**result.to_dict(), "units": dict(units or {})}
+    html = run_report(document, figures={"one period and spectra": figure_png(result_figure(result))},
+                      breakdown=breakdown, caution=CAUTION if needs_caution(result) else None)
+    write_report(path, html)
 
 
 def main(args: argparse.Namespace) -> int:
@@ -221,6 +242,7 @@ def main(args: argparse.Namespace) -> int:
     settings = settings_from_args(args)
     result = run_circuit(template, values=values, choices=choices, settings=settings)
     print(format_result(result))
+    args.units = {name: spec.unit for name, spec in template.parameters.items() if spec.unit}
     if needs_caution(result):
         print(CAUTION, file=sys.stderr)
     outputs = Outputs("run")

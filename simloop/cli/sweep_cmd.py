@@ -42,6 +42,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="write a PNG: chosen harmonics in dBV, dBc and dB from ideal vs the first --vary")
     p.add_argument("--plot-harmonics", default="1,2,3", metavar="N,N",
                    help="harmonic orders to plot (default 1,2,3)")
+    p.add_argument("--report", type=Path, metavar="PATH",
+                   help="write one self-contained HTML report (points table and figure)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -111,7 +113,8 @@ def main(args: argparse.Namespace) -> int:
     print(f"{len(points)} points: {outcome.simulated} simulated, {outcome.reused} reused from "
           f"{store_path}, {outcome.failed} failed")
     amplitude = template.amplitude_param
-    if amplitude and any(p["parameters"].get(amplitude, 0) > ELV_PEAK_V for p in points):
+    high = bool(amplitude and any(p["parameters"].get(amplitude, 0) > ELV_PEAK_V for p in points))
+    if high:
         print(CAUTION, file=sys.stderr)
     outputs = Outputs("sweep")
     if args.json:
@@ -130,6 +133,23 @@ def main(args: argparse.Namespace) -> int:
             save_sweep_figure(fig, args.plot)
 
         outputs.attempt(str(args.plot), plot)
+    if args.report:
+        def report() -> None:
+            from ..html_report import figure_png, sweep_report, write_report
+            from ..sweep_plots import sweep_figure
+
+            figures = {}
+            if any(p["status"] == "ok" for p in points):
+                fig = sweep_figure(points, x_name=names[0],
+                                   line_name=names[1] if len(names) > 1 else None,
+                                   harmonics=orders, x_unit=units.get(names[0], ""),
+                                   title=f"{template.name}: {template.title}")
+                figures["harmonics against the swept variable"] = figure_png(fig)
+            write_report(args.report, sweep_report(
+                outcome.to_dict(), title=f"{template.name}: {template.title}", figures=figures,
+                units=units, caution=CAUTION if high else None))
+
+        outputs.attempt(str(args.report), report)
     if outcome.failed:
         outputs.failures.append(f"{outcome.failed} of {len(points)} points failed or did not "
                                 "converge; their reasons are in the table above and the outputs")
