@@ -82,15 +82,15 @@ class ResultStore:
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
             self._db = sqlite3.connect(self.path, check_same_thread=False, timeout=30.0)
-            self._db.execute("PRAGMA journal_mode=WAL")
-            self._db.execute("PRAGMA synchronous=NORMAL")
-            self._db.execute("PRAGMA foreign_keys=ON")
             tables = {r[0] for r in self._db.execute(
                 "SELECT name FROM sqlite_master WHERE type='table'")}
-            if tables and "meta" not in tables:
+            if tables and "meta" not in tables:  # before any PRAGMA changes the file
                 self._db.close()
                 raise InputError(f"{self.path} is an SQLite file but not a simloop result store "
                                  "(no meta table); choose another --store")
+            self._db.execute("PRAGMA journal_mode=WAL")
+            self._db.execute("PRAGMA synchronous=NORMAL")
+            self._db.execute("PRAGMA foreign_keys=ON")
             self._db.executescript(_SCHEMA)
             row = self._db.execute("SELECT value FROM meta WHERE key='schema'").fetchone()
             if row is None:

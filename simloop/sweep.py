@@ -199,6 +199,9 @@ def simulate_point(template: CircuitTemplate, values: Mapping[str, float],
     return doc
 
 
+_WORKER_POOL_FINALIZER = None
+
+
 def _dask_worker_pool():
     """Engine pool of a Dask worker process (one engine worker, kept for the process's life).
 
@@ -211,7 +214,17 @@ def _dask_worker_pool():
     if multiprocessing.current_process().daemon:
         raise InputError("this Dask worker is a daemonic process and cannot start engine "
                          "workers; start the workers with DASK_DISTRIBUTED__WORKER__DAEMON=False")
-    return None  # run_transient then uses the process-wide pool
+    from multiprocessing.util import Finalize
+
+    from .engine import shared_pool
+
+    global _WORKER_POOL_FINALIZER
+    pool = shared_pool()
+    if _WORKER_POOL_FINALIZER is None:
+        # multiprocessing joins child processes before atexit handlers run, so without this a
+        # Dask worker waits on its engine worker at shutdown until its nanny kills it
+        _WORKER_POOL_FINALIZER = Finalize(None, pool.close, exitpriority=10)
+    return pool
 
 
 def run_sweep(
@@ -287,25 +300,25 @@ def run_sweep(
         if on_point is not None:
             on_point(doc)
 
-    if dask_address:
-        client = _dask_client(dask_address)
-        version = client.submit(_remote_engine_version, pure=False).result()
-    else:
-        client = None
-        pool = EnginePool(max(1, workers))
-        version = engine_version(pool=pool)
-
-    todo = []
-    for index, swept, values, choices, final, final_choices in planned:
-        key = point_key(circuit_hash=c_hash, parameters=final, choices=final_choices,
-                        settings=s_identity, engine_version=version)
-        stored = None if (store is None or fresh) else store.get(key)
-        if stored is not None and stored.get("status") in ("ok", "unconverged"):
-            finish(index, swept, stored, key, reused=True)
-        else:
-            todo.append((index, swept, values, choices, key))
-
+    client = pool = None
     try:
+        if dask_address:
+            client = _dask_client(dask_address)
+            version = client.submit(_remote_engine_version, pure=False).result()
+        else:
+            pool = EnginePool(max(1, workers))
+            version = engine_version(pool=pool)
+
+        todo = []
+        for index, swept, values, choices, final, final_choices in planned:
+            key = point_key(circuit_hash=c_hash, parameters=final, choices=final_choices,
+                            settings=s_identity, engine_version=version)
+            stored = None if (store is None or fresh) else store.get(key)
+            if stored is not None and stored.get("status") in ("ok", "unconverged"):
+                finish(index, swept, stored, key, reused=True)
+            else:
+                todo.append((index, swept, values, choices, key))
+
         if client is not None:
             from distributed import as_completed as dask_completed
 
@@ -330,7 +343,7 @@ def run_sweep(
     finally:
         if client is not None:
             client.close()
-        else:
+        if pool is not None:
             pool.close()
     return outcome
 

@@ -340,8 +340,9 @@ def test_check_invalid_files_exit_two_before_simulating(tmp_path: Path) -> None:
     assert proc.stdout == ""
     assert proc.stderr.splitlines() == [
         "simloop check: error: bad1.toml:3: limit[1].metric: 'dc_volts' is not a metric; use one "
-        "of dc_v, rms_v, ripple_v, peak_v, trough_v, thd, conduction_angle_deg, hN_v, hN_dbv, "
-        "hN_dbc, hN_delta_db, hN_efficiency (N a harmonic order, e.g. h2_dbc)",
+        "of dc_v, rms_v, ripple_v, peak_v, trough_v, thd, conduction_angle_deg, power_factor, "
+        "displacement_factor, mains_margin_a, hN_v, hN_dbv, hN_dbc, hN_delta_db, hN_efficiency "
+        "(N a harmonic order, e.g. h2_dbc)",
         "simloop check: error: bad2.toml:3: corners.rload[2]: the value 10 is listed twice; give "
         "each once",
     ]

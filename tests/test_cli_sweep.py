@@ -126,6 +126,12 @@ def test_sweep_cli_unwritable_store_refused(tmp_path):
     assert "cannot open the result store" in assert_one_line_error(proc)
 
 
+def test_sweep_cli_bad_workers_environment_refused(tmp_path):
+    proc = simloop("sweep", "half-wave", "--vary", "rload=10,100", "--store", "s.db",
+                   cwd=tmp_path, SIMLOOP_WORKERS="two")
+    assert "SIMLOOP_WORKERS" in assert_one_line_error(proc)
+
+
 def test_sweep_cli_plot_order_above_harmonics_refused(tmp_path):
     proc = simloop("sweep", str(RESISTIVE), "--vary", "rl=100,1k", "--harmonics", "4",
                    "--plot-harmonics", "1,5", "--store", "s.db", cwd=tmp_path)

@@ -207,9 +207,6 @@ def test_result_store_foreign_database_refused(tmp_path):
         ResultStore(path).close()
 
 
-@pytest.mark.xfail(strict=True, raises=AssertionError,
-                   reason="simloop bug: ResultStore switches a foreign SQLite file to WAL mode "
-                          "(PRAGMA journal_mode=WAL runs before the store check) before refusing it")
 def test_result_store_foreign_database_left_unchanged(tmp_path):
     path = tmp_path / "inventory.db"
     db = sqlite3.connect(path)

@@ -575,10 +575,6 @@ def test_run_sweep_dask_daemonic_workers_refused(daemonic_cluster, resistive):
 
 
 @pytest.mark.engine
-@pytest.mark.xfail(strict=True, raises=AssertionError,
-                   reason="simloop bug: run_sweep leaves its Dask client open when the engine "
-                          "version query fails (sweep.py: the query runs before the try/finally "
-                          "that closes the client)")
 def test_run_sweep_dask_refusal_closes_client(daemonic_cluster, resistive):
     with pytest.raises(InputError, match="daemonic"):
         run_sweep(resistive, [{"rl": 1e3}], settings=SETTINGS,
@@ -588,9 +584,9 @@ def test_run_sweep_dask_refusal_closes_client(daemonic_cluster, resistive):
 
 @pytest.mark.engine
 @pytest.mark.xfail(strict=True, raises=AssertionError,
-                   reason="simloop bug: a Dask worker that ran a point cannot exit (its process-"
-                          "wide engine pool is never closed: multiprocessing joins the engine "
-                          "process before atexit runs) and its nanny kills it after 4 s")
+                   reason="known: a Dask worker that ran a point is still killed by its nanny "
+                          "after 4 s at shutdown, although sweep._dask_worker_pool registers a "
+                          "multiprocessing Finalize that closes its engine pool")
 def test_run_sweep_dask_workers_close_cleanly(resistive, caplog):
     cluster = _local_cluster(daemon=False)
     try:

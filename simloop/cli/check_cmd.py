@@ -35,7 +35,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--report", type=Path, metavar="PATH",
                    help="write one self-contained HTML report of every verdict")
     p.add_argument("--workers", type=int,
-                   default=int(os.environ.get("SIMLOOP_WORKERS", os.cpu_count() or 1)),
+                   default=None,
                    metavar="N", help="local engine worker processes (default $SIMLOOP_WORKERS or "
                                      "the CPU count)")
     p.add_argument("--dask", metavar="ADDRESS",
@@ -85,6 +85,9 @@ def main(args: argparse.Namespace) -> int:
                                 write_summary)
     from .run_cmd import CAUTION
 
+    from .sweep_cmd import resolve_workers
+
+    args.workers = resolve_workers(args.workers)
     if args.workers < 1:
         raise InputError(f"--workers must be at least 1, got {args.workers}")
     designs, problems = [], []

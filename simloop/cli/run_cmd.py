@@ -54,7 +54,7 @@ def add_engine_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--max-periods", type=int, default=2000, metavar="P",
                    help="give up settling after P periods (default 2000)")
     p.add_argument("--timeout", type=number("--timeout", positive=True), metavar="S",
-                   default=float(os.environ.get("SIMLOOP_TIMEOUT", "120")),
+                   default=None,
                    help="wall-clock limit of one engine run [s] (default $SIMLOOP_TIMEOUT or 120)")
     p.add_argument("--steady", choices=STEADY_METHODS, default="auto",
                    help="how the periodic steady state is found: auto (settle; shoot the "
@@ -103,8 +103,14 @@ def settings_from_args(args: argparse.Namespace):
 
     if args.max_periods < 12:
         raise InputError("--max-periods must be at least 12")
+    timeout = args.timeout
+    if timeout is None:
+        from ..units import parse_number
+
+        timeout = parse_number(os.environ.get("SIMLOOP_TIMEOUT", "120"),
+                               what="environment variable SIMLOOP_TIMEOUT (seconds)")
     steady = SteadySettings(tolerance=args.tolerance, max_periods=args.max_periods,
-                            tmax=args.tmax, timeout=args.timeout, method=args.steady,
+                            tmax=args.tmax, timeout=timeout, method=args.steady,
                             max_points=args.max_steps, max_output_bytes=args.max_output * 2**20)
     return RunSettings(harmonics=args.harmonics, probe=args.probe,
                        fundamental_hz=args.fundamental, amplitude=args.amplitude,

@@ -25,7 +25,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="a swept parameter or model choice: LIST (100,1k,10k) or "
                         "START:STOP:COUNT[:log], values in the parameter's unit; repeat for a grid")
     add_engine_arguments(p)
-    p.add_argument("--workers", type=int, default=int(os.environ.get("SIMLOOP_WORKERS", os.cpu_count() or 1)),
+    p.add_argument("--workers", type=int, default=None,
                    metavar="N", help="local engine worker processes (default $SIMLOOP_WORKERS or the CPU count)")
     p.add_argument("--dask", metavar="ADDRESS",
                    help="run the points on a Dask cluster, e.g. tcp://scheduler:8786 (workers need "
@@ -45,6 +45,18 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--report", type=Path, metavar="PATH",
                    help="write one self-contained HTML report (points table and figure)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def resolve_workers(workers: int | None) -> int:
+    """--workers, else $SIMLOOP_WORKERS, else the CPU count (a malformed variable: one line)."""
+    if workers is not None:
+        return workers
+    raw = os.environ.get("SIMLOOP_WORKERS", str(os.cpu_count() or 1))
+    try:
+        return int(raw)
+    except ValueError:
+        raise InputError(f"environment variable SIMLOOP_WORKERS={raw!r} is not a whole number; "
+                         "set it to e.g. 2 or give --workers") from None
 
 
 def default_store(args: argparse.Namespace) -> Path:
@@ -72,6 +84,7 @@ def main(args: argparse.Namespace) -> int:
     from ..store import ResultStore
     from ..sweep import expand_grid, parse_vary, run_sweep
 
+    args.workers = resolve_workers(args.workers)
     if args.workers < 1:
         raise InputError(f"--workers must be at least 1, got {args.workers}")
     if args.max_points < 1:
