@@ -11,11 +11,8 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import re
 import sqlite3
-import subprocess
-import sys
 import time
 import tomllib
 import xml.etree.ElementTree as ET
@@ -23,27 +20,20 @@ from pathlib import Path
 from types import SimpleNamespace
 
 import pytest
+from cli_support import run_simloop
 
 pytestmark = pytest.mark.engine
 
 #: The console script installed with simloop (``[project.scripts]`` in pyproject.toml).
-SIMLOOP = Path(sys.executable).parent / "simloop"
 REPO = Path(__file__).resolve().parent.parent
 PASSING = ("examples/rail-preregulator.toml", "examples/clock-comb-doubler.toml",
            "examples/rf-level-detector.toml")
 FAILING = "examples/sensor-bridge-undersized-cap.toml"
 
 
-def simloop(*args: str | Path, cwd: Path = REPO, timeout: float = 300.0) -> subprocess.CompletedProcess[str]:
+def simloop(*args: str | Path, cwd: Path = REPO, timeout: float = 300.0):
     """Run the real console script; output captured as text."""
-    if not SIMLOOP.is_file():
-        pytest.fail(f"console script {SIMLOOP} is missing; install simloop: pip install -e .",
-                    pytrace=False)
-    env = dict(os.environ)
-    env.setdefault("NGSPICE_LIBRARY_PATH", "libngspice.so.0")
-    return subprocess.run([str(SIMLOOP), *map(str, args)], cwd=cwd, env=env, capture_output=True,
-                          text=True, timeout=timeout, check=False)
-
+    return run_simloop(*args, cwd=cwd, timeout=timeout, env={})
 
 def expected_cases(design: Path) -> int:
     """Corners x limits of a design file without skips, counted from its TOML here."""

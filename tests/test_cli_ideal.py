@@ -9,18 +9,16 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import re
 import subprocess
-import sys
 from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
 import pytest
+from cli_support import assert_one_line_error, run_simloop
 
 #: The console script installed with simloop (``[project.scripts]`` in pyproject.toml).
-SIMLOOP = Path(sys.executable).parent / "simloop"
 
 #: The command's acceptance criterion: |A_n - closed form| <= 1e-9 max_n A_n, n = 0..12.
 CRITERION = 1e-9
@@ -29,23 +27,10 @@ ORDERS = 12
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), sec. 5.2 (common practice)
 
 
-def simloop(*args: str, cwd: Path, timeout: float = 60.0) -> subprocess.CompletedProcess[str]:
+def simloop(*args: str, cwd: Path, timeout: float = 60.0):
     """Run the real console script; output captured as text."""
-    if not SIMLOOP.is_file():
-        pytest.fail(f"console script {SIMLOOP} is missing; install simloop: pip install -e .",
-                    pytrace=False)
-    env = dict(os.environ, MPLBACKEND="Agg")
-    return subprocess.run([str(SIMLOOP), *args], cwd=cwd, env=env, capture_output=True,
-                          text=True, timeout=timeout, check=False)
+    return run_simloop(*args, cwd=cwd, timeout=timeout)
 
-
-def assert_one_line_error(proc: subprocess.CompletedProcess[str]) -> str:
-    """Exit code 2, exactly one non-empty stderr line, no traceback anywhere; returns the line."""
-    assert proc.returncode == 2, (proc.returncode, proc.stdout, proc.stderr)
-    assert "Traceback" not in proc.stdout + proc.stderr
-    lines = proc.stderr.splitlines()
-    assert len(lines) == 1 and lines[0].strip(), proc.stderr
-    return lines[0]
 
 
 # ------------------------------------------------------------------------------- closed forms

@@ -16,30 +16,22 @@ from __future__ import annotations
 import os
 import shutil
 import subprocess
-import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import pytest
+from cli_support import run_simloop
 
 #: The console script installed with simloop (``[project.scripts]`` in pyproject.toml).
-SIMLOOP = Path(sys.executable).parent / "simloop"
 NGSPICE = shutil.which("ngspice")
 
 HEADER = "* user netlist\nVs in 0 SIN(0 1 50)\nR1 in out 1k\nR2 out 0 1k\n"  # lines 1-4
 NETLIST = "that.cir"
 
 
-def simloop(*args: str, cwd: Path, timeout: float = 60.0) -> subprocess.CompletedProcess[str]:
+def simloop(*args: str, cwd: Path, timeout: float = 60.0):
     """Run the real console script; output captured as text."""
-    if not SIMLOOP.is_file():
-        pytest.fail(f"console script {SIMLOOP} is missing; install simloop: pip install -e .",
-                    pytrace=False)
-    env = dict(os.environ, MPLBACKEND="Agg")
-    env.setdefault("NGSPICE_LIBRARY_PATH", "libngspice.so.0")
-    return subprocess.run([str(SIMLOOP), *args], cwd=cwd, env=env, capture_output=True,
-                          text=True, timeout=timeout, check=False)
-
+    return run_simloop(*args, cwd=cwd, timeout=timeout)
 
 @dataclass(frozen=True, slots=True)
 class Case:

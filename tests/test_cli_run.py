@@ -8,40 +8,24 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import re
 import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from cli_support import assert_one_line_error, run_simloop
 
 #: The console script installed with simloop (``[project.scripts]`` in pyproject.toml).
-SIMLOOP = Path(sys.executable).parent / "simloop"
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), sec. 5.2 (common practice)
 ORDERS = 6
 BUILTINS = ("centre-tap", "full-wave-bridge", "half-wave", "switching-stage")
 
 
-def simloop(*args: str, cwd: Path, timeout: float = 180.0) -> subprocess.CompletedProcess[str]:
+def simloop(*args: str, cwd: Path, timeout: float = 180.0):
     """Run the real console script; output captured as text."""
-    if not SIMLOOP.is_file():
-        pytest.fail(f"console script {SIMLOOP} is missing; install simloop: pip install -e .",
-                    pytrace=False)
-    env = dict(os.environ, MPLBACKEND="Agg")
-    env.setdefault("NGSPICE_LIBRARY_PATH", "libngspice.so.0")
-    return subprocess.run([str(SIMLOOP), *args], cwd=cwd, env=env, capture_output=True,
-                          text=True, timeout=timeout, check=False)
+    return run_simloop(*args, cwd=cwd, timeout=timeout)
 
-
-def assert_one_line_error(proc: subprocess.CompletedProcess[str]) -> str:
-    """Exit code 2, exactly one non-empty stderr line, no traceback anywhere; returns the line."""
-    assert proc.returncode == 2, (proc.returncode, proc.stdout, proc.stderr)
-    assert "Traceback" not in proc.stdout + proc.stderr
-    lines = proc.stderr.splitlines()
-    assert len(lines) == 1 and lines[0].strip(), proc.stderr
-    return lines[0]
 
 
 def half_wave_sine_series(amp: float, big_n: int) -> tuple[np.ndarray, np.ndarray]:

@@ -16,7 +16,6 @@ import os
 import signal
 import sqlite3
 import subprocess
-import sys
 import time
 from pathlib import Path
 
@@ -24,9 +23,10 @@ import numpy as np
 import pytest
 
 from reference import rectifiers as ref
+from cli_support import SIMLOOP
+from cli_support import assert_one_line_error as shared_one_line_error
 
 #: The console script installed with simloop (``[project.scripts]`` in pyproject.toml).
-SIMLOOP = Path(sys.executable).parent / "simloop"
 CIRCUITS = Path(__file__).parent / "data" / "circuits"
 RESISTIVE = CIRCUITS / "half-wave-resistive.cir"
 RESERVOIR = CIRCUITS / "half-wave-reservoir.cir"
@@ -55,13 +55,8 @@ def simloop(*args: str, cwd: Path, timeout: float = 180.0, **env: str) -> subpro
 
 
 def assert_one_line_error(proc: subprocess.CompletedProcess[str]) -> str:
-    """Exit code 2, exactly one non-empty stderr line, no traceback anywhere; returns the line."""
-    assert proc.returncode == 2, (proc.returncode, proc.stdout, proc.stderr)
-    assert "Traceback" not in proc.stdout + proc.stderr
-    lines = proc.stderr.splitlines()
-    assert len(lines) == 1 and lines[0].startswith("simloop sweep: error: "), proc.stderr
-    return lines[0]
-
+    """Exit code 2, one stderr line from the sweep command, no traceback (cli_support)."""
+    return shared_one_line_error(proc, prefix="simloop sweep: error: ")
 
 def _complex(rows) -> np.ndarray:
     """sim_v, sim_phase_deg rows -> A_n exp(-j psi_n) (f = A0 + sum A_n cos(n w t - psi_n))."""

@@ -299,7 +299,8 @@ PROBEISH = st.one_of(
     st.text(max_size=30),
     st.builds(lambda k, a, b, pad: f"{pad}{k}({a}{b}){pad}",
               st.sampled_from(("v", "V", "i", "I", "x", "")),
-              st.text(st.characters(codec="utf-8"), max_size=8) | st.sampled_from(("out", "0", "gnd", "vs", "an")),
+              st.text(st.characters(codec="utf-8"), max_size=8)
+              | st.sampled_from(("out", "0", "gnd", "vs", "an")),
               st.sampled_from(("", ",out", ", an", ",0", ",", ",,x")),
               st.sampled_from(("", " ", "\t"))),
 )
