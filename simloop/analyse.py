@@ -64,11 +64,13 @@ class RunSettings:
     mains_power_w: float | None = None
 
     def __post_init__(self) -> None:
-        if not isinstance(self.harmonics, int) or not 1 <= self.harmonics <= 1000:
+        if (not isinstance(self.harmonics, int) or isinstance(self.harmonics, bool)
+                or not 1 <= self.harmonics <= 1000):
             raise InputError(f"harmonics must be a whole number 1..1000, got {self.harmonics!r}")
         for name in ("fundamental_hz", "amplitude"):
             value = getattr(self, name)
-            if value is not None and not (math.isfinite(value) and value > 0):
+            if value is not None and (isinstance(value, bool) or not isinstance(value, (int, float))
+                                      or not (math.isfinite(value) and value > 0)):
                 raise InputError(f"{name} must be a positive finite number, got {value!r}")
         if self.mains_class is not None and self.mains_class not in ("A", "D"):
             raise InputError(f"mains class {self.mains_class!r} is unknown; use A or D")
@@ -491,6 +493,9 @@ def run_circuit(
 
         rendered = replace(rendered, text=transform(rendered.text))
     f0 = resolve_fundamental(template, rendered, settings.fundamental_hz)
+    if not (math.isfinite(f0) and 1e-3 <= f0 <= 1e11):
+        raise InputError(f"{template.name}: fundamental {f0:g} Hz is outside 1 mHz .. 100 GHz; "
+                         "check the SIN frequency or PULSE period, or give --fundamental HZ")
     amplitude = resolve_amplitude(template, rendered, settings.amplitude)
     probe: Probe | None = template.probe(settings.probe) if settings.probe else template.default_probe
     if probe is None:

@@ -215,6 +215,9 @@ HARMONIC_FORMS: dict[str, tuple[str, str]] = {
 
 _HARMONIC = re.compile(r"h(\d{1,4})_(v|dbv|dbc|delta_db|efficiency)")
 
+#: Largest design file read [bytes] (a real one is a few kB).
+MAX_DESIGN_BYTES = 1_000_000
+
 _TOP_KEYS = ("title", "description", "circuit", "settings", "parameters", "corners", "corner",
              "limit")
 _SETTINGS_KEYS = ("harmonics", "probe", "fundamental", "amplitude", "ideal", "tolerance",
@@ -891,8 +894,13 @@ def load_design(path: str | Path) -> Design:
     except UnicodeDecodeError as exc:
         line = raw[: exc.start].count(b"\n") + 1
         raise DesignError(file, line, "", "not UTF-8 text; save the file as UTF-8") from None
+    if len(raw) > MAX_DESIGN_BYTES:
+        raise DesignError(file, 0, "", f"the design file is larger than the {MAX_DESIGN_BYTES} "
+                                       f"bytes simloop reads ({len(raw)}); split it into several files")
     try:
         data = tomllib.loads(text)
+    except RecursionError:
+        raise DesignError(file, 1, "", "tables nested too deeply to read; flatten the file") from None
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"\(at line (\d+), column (\d+)\)", str(exc))
         line = int(m.group(1)) if m else 1
@@ -908,6 +916,11 @@ def load_design(path: str | Path) -> Design:
     try:
         if "/" in circuit_ref or "\\" in circuit_ref or circuit_ref.lower().endswith(".cir"):
             netlist = (design_path.parent / circuit_ref).resolve()
+            folder = design_path.parent.resolve()
+            if not netlist.is_relative_to(folder):
+                raise r.fail(("circuit",), f"netlist {circuit_ref!r} lies outside the design "
+                                           "file's folder; keep designs and their netlists "
+                                           "together (a built-in name needs no path)")
             if not netlist.is_file():
                 raise r.fail(("circuit",), f"netlist {circuit_ref!r} not found (looked for "
                                            f"{netlist}); paths are relative to the design file")

@@ -341,7 +341,8 @@ def _error_lines(messages: list[str]) -> tuple[list[str], bool]:
     relevant: list[str] = []
     failed = False
     for line in _split_stream(messages):
-        if not line or line.lower().startswith(_CHATTER):
+        low = line.lower()
+        if not line or (low.startswith(_CHATTER) and "singular matrix" not in low):
             continue
         if line not in relevant:
             relevant.append(line)
@@ -436,14 +437,14 @@ def _watch_parent(parent: int, period: float = 0.5) -> None:
 
     def watch() -> None:
         while True:
-            time.sleep(period)
             if os.getppid() != parent:
                 os._exit(0)
+            time.sleep(period)
 
     threading.Thread(target=watch, name="simloop-parent-watch", daemon=True).start()
 
 
-def _worker_init(pool_dir: str) -> None:
+def _worker_init(pool_dir: str, parent: int | None = None) -> None:
     """Initializer of every engine worker: isolate, silence, start ngspice once."""
     import faulthandler
     import logging
@@ -456,7 +457,8 @@ def _worker_init(pool_dir: str) -> None:
         resource.setrlimit(resource.RLIMIT_CORE, (0, hard))
     except (ImportError, ValueError, OSError):
         pass  # no core-dump limit on this platform
-    _watch_parent(os.getppid())
+    # the pool's pid, not os.getppid(): a parent killed before this runs has already gone
+    _watch_parent(parent if parent is not None else os.getppid())
     pid = os.getpid()
     log = open(os.path.join(pool_dir, f"w-{pid}.log"), "ab", buffering=0)  # noqa: SIM115
     _STATE.log = log
@@ -855,7 +857,7 @@ class EnginePool:
             max_workers=self._workers,
             mp_context=multiprocessing.get_context("spawn"),
             initializer=_worker_init,
-            initargs=(self._dir,),
+            initargs=(self._dir, os.getpid()),
             max_tasks_per_child=self._max_tasks,
         )
         self._count += 1

@@ -155,8 +155,6 @@ def explain_circuit(
     InputError
         If the circuit does not declare what the breakdown needs (its estimate kind and roles).
     """
-    from dataclasses import replace
-
     from . import estimate as est
     from .analyse import RunSettings, ideal_parameters, resolve_amplitude, resolve_fundamental
     from .analyse import run_circuit
@@ -226,7 +224,6 @@ def explain_circuit(
             steps.append(Step(name, adds, result.simulated, True))
             last = result
     else:
-        ron = roles.get("on_resistance")
         lpar, cpar = roles.get("stray_inductance"), roles.get("stray_capacitance")
         stray_off = {**_smallest(template, lpar), **_smallest(template, cpar)}
         for name, adds, step_values in (
@@ -237,7 +234,6 @@ def explain_circuit(
             result = simulate(step_values)
             steps.append(Step(name, adds, result.simulated, True))
             last = result
-        del ron
     return Breakdown(circuit=template.name, title=template.title, probe=last.probe,
                      fundamental_hz=f0, steps=tuple(steps), parameters=dict(last.parameters),
                      notes=tuple(dict.fromkeys(notes)), result=last)

@@ -109,9 +109,17 @@ def _check_text(text: str, *, origin: str) -> str:
     return text
 
 
+def _is_file(path: Path) -> bool:
+    """``path.is_file()``, but False (not an OSError) for names the system cannot even look up."""
+    try:
+        return path.is_file()
+    except OSError:  # e.g. ENAMETOOLONG
+        return False
+
+
 def _read_file(path: Path, *, origin: str) -> str:
     """Read a netlist or include file: a regular file, at most 2 MB, UTF-8, no NUL bytes."""
-    if not path.is_file():
+    if not _is_file(path):
         raise InputError(f"{origin}: {path} is not a readable file; check the path")
     with open(path, "rb") as fh:
         data = fh.read(MAX_FILE_BYTES + 1)
@@ -360,7 +368,7 @@ def _expand(
         kind, arg, section = target
         path = _resolve_include(arg, base_dir=base_dir, allowed_dirs=allowed_dirs,
                                 origin=ln.origin, number=ln.number)
-        if kind == ".lib" and section is None and not path.is_file():
+        if kind == ".lib" and section is None and not _is_file(path):
             skipping = arg  # a section header of a library read whole: not wanted here
             continue
         key = (path, section.lower() if section else None)
@@ -552,8 +560,8 @@ class _ParamDef:
     number: int
 
 
-def _param_defs(lines: Sequence[_Line]) -> list[_ParamDef]:
-    defs: list[_ParamDef] = []
+def _top_level(lines: Sequence[_Line]) -> Iterator[_Line]:
+    """The cards outside every ``.subckt`` ... ``.ends`` body (the delimiters left out)."""
     depth = 0
     for ln in lines:
         if ln.kind != "card":
@@ -562,7 +570,14 @@ def _param_defs(lines: Sequence[_Line]) -> list[_ParamDef]:
             depth += 1
         elif ln.first.startswith(".ends"):
             depth = max(0, depth - 1)
-        elif depth == 0 and _is_param_card(ln):
+        elif depth == 0:
+            yield ln
+
+
+def _param_defs(lines: Sequence[_Line]) -> list[_ParamDef]:
+    defs: list[_ParamDef] = []
+    for ln in _top_level(lines):
+        if _is_param_card(ln):
             body = _strip_inline_comment(ln.text.split(None, 1)[1] if " " in ln.text else "")
             for m in _ASSIGN.finditer(body):
                 defs.append(_ParamDef(m.group("name").lower(), m.group("value"),
@@ -630,20 +645,10 @@ _EG_KEYWORDS = ("value", "vol", "cur", "poly", "table", "laplace", "freq", "and"
 
 def _top_cards(text: str) -> Iterator[list[str]]:
     """Lower-case tokens of every top-level card (subcircuit bodies skipped)."""
-    depth = 0
-    for ln in _logical_lines(text.replace("\r\n", "\n"), origin="netlist", title=True):
-        if ln.kind != "card":
-            continue
-        if ln.first.startswith(".subckt"):
-            depth += 1
-            continue
-        if ln.first.startswith(".ends"):
-            depth = max(0, depth - 1)
-            continue
-        if depth == 0:
-            tokens = [m.group(0).lower() for m in _tokens(ln.text)]
-            if tokens:
-                yield tokens
+    for ln in _top_level(_logical_lines(text.replace("\r\n", "\n"), origin="netlist", title=True)):
+        tokens = [m.group(0).lower() for m in _tokens(ln.text)]
+        if tokens:
+            yield tokens
 
 
 def _model_names(text: str) -> dict[str, str]:
@@ -828,7 +833,7 @@ def model_parameters(text: str, model: str) -> dict[str, float]:
 
     Examples
     --------
-    >>> model_parameters("t\n.model dx D(IS=1e-9 N=1.8 RS=0.5)\n", "dx")
+    >>> model_parameters("t\\n.model dx D(IS=1e-9 N=1.8 RS=0.5)\\n", "dx")
     {'IS': 1e-09, 'N': 1.8, 'RS': 0.5}
     """
     wanted = model.lower()
@@ -954,15 +959,8 @@ def _source_args(ln: _Line) -> tuple[str, list[str]] | None:
 
 
 def _first_periodic(lines: Sequence[_Line]) -> tuple[_Line, str, list[str]] | None:
-    depth = 0
-    for ln in lines:
-        if ln.kind != "card":
-            continue
-        if ln.first.startswith(".subckt"):
-            depth += 1
-        elif ln.first.startswith(".ends"):
-            depth = max(0, depth - 1)
-        elif depth == 0 and ln.first[:1] in ("v", "i"):
+    for ln in _top_level(lines):
+        if ln.first[:1] in ("v", "i"):
             found = _source_args(ln)
             if found is not None:
                 return ln, found[0], found[1]
@@ -1114,6 +1112,9 @@ class ParameterSpec:
     def check(self, value: float, *, what: str = "") -> float:
         """Return ``value`` as float, or raise InputError if it is not finite or out of range."""
         label = what or f"parameter {self.name}"
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise InputError(f"{label}: {value!r} is not a number; give a value in "
+                             f"{self.unit or 'its unit'}")
         value = float(value)
         if not math.isfinite(value):
             raise InputError(f"{label}: {value!r} is not a finite number")
@@ -1463,10 +1464,10 @@ def load_circuit(name_or_path: str | Path) -> CircuitTemplate:
     """
     text = str(name_or_path)
     candidate = builtin_dir() / f"{text}.cir"
-    if "/" not in text and "\\" not in text and not text.endswith(".cir") and candidate.is_file():
+    if "/" not in text and "\\" not in text and not text.endswith(".cir") and _is_file(candidate):
         return _load(candidate, builtin=True)
     path = Path(name_or_path).expanduser()
-    if not path.is_file():
+    if not _is_file(path):
         names = ", ".join(p.stem for p in sorted(builtin_dir().glob("*.cir")))
         raise InputError(f"no circuit {text!r}: not a built-in ({names}) and not a netlist file")
     return _load(path.resolve(), builtin=False)
@@ -1539,7 +1540,7 @@ def _load(path: Path, *, builtin: bool) -> CircuitTemplate:
             if bound is not None and not (isinstance(bound, (int, float)) and math.isfinite(bound)):
                 raise fail(f"parameter {name}: min and max must be numbers")
         if lo is not None and hi is not None and lo > hi:
-            raise fail(f"parameter {name}: min {lo} is above max {hi}")
+            raise fail(f"parameter {name}: min {lo} is above max {hi}; swap them")
         p = ParameterSpec(name, literal[name], str(spec.get("unit", "")),
                           str(spec.get("meaning", "")), None if lo is None else float(lo),
                           None if hi is None else float(hi))
@@ -1636,6 +1637,8 @@ def _read_toml(path: Path) -> dict:
             return tomllib.load(fh)
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{path.name}: not valid TOML ({exc}); fix the file") from None
+    except RecursionError:
+        raise InputError(f"{path.name}: tables nested too deeply to read; flatten the file") from None
 
 
 def _read_choices(raw, lines, inlined, params, fail) -> dict[str, ChoiceSpec]:

@@ -82,6 +82,14 @@ class SteadySettings:
     max_output_bytes: float = 512 * 2**20
 
     def __post_init__(self) -> None:
+        for name in ("tolerance", "timeout", "max_points", "max_output_bytes", "tmax"):
+            value = getattr(self, name)
+            if value is not None and (isinstance(value, bool) or not isinstance(value, (int, float))):
+                raise InputError(f"steady-state setting {name} must be a number, got {value!r}")
+        for name in ("first_periods", "max_periods"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, int):
+                raise InputError(f"steady-state setting {name} must be a whole number, got {value!r}")
         if not (math.isfinite(self.tolerance) and 0 < self.tolerance < 1):
             raise InputError(
                 f"steady-state tolerance must lie in (0, 1), got {self.tolerance!r}; try 1e-7"

@@ -27,6 +27,10 @@ from .units import parse_number
 
 #: Largest grid run without --max-points.
 DEFAULT_MAX_POINTS = 1000
+#: Most values one --vary may list or generate (the grid limit applies on top).
+MAX_AXIS_VALUES = 100_000
+#: Most local engine workers one sweep may start.
+MAX_WORKERS = 256
 
 
 @dataclass(frozen=True, slots=True)
@@ -93,6 +97,9 @@ def parse_vary(text: str, template: CircuitTemplate) -> Vary:
             raise InputError(f"{what}: COUNT must be a whole number, got {parts[2]!r}") from None
         if count < 1:
             raise InputError(f"{what}: COUNT must be at least 1, got {count}")
+        if count > MAX_AXIS_VALUES:
+            raise InputError(f"{what}: COUNT {count} is over the limit of {MAX_AXIS_VALUES} "
+                             "values per axis; thin the range")
         if count == 1 and start != stop:
             raise InputError(f"{what}: a range with COUNT 1 must have START = STOP")
         if len(parts) == 4:
@@ -102,7 +109,10 @@ def parse_vary(text: str, template: CircuitTemplate) -> Vary:
         else:
             values = tuple(float(v) for v in np.linspace(start, stop, count))
     else:
-        values = tuple(parse_number(v, what=what) for v in spec.split(","))
+        items = spec.split(",")
+        if len(items) > MAX_AXIS_VALUES:
+            raise InputError(f"{what}: {len(items)} values, over the limit of {MAX_AXIS_VALUES}")
+        values = tuple(parse_number(v, what=what) for v in items)
     spec_obj = template.parameters[name]
     checked = tuple(spec_obj.check(v, what=what) for v in values)
     _no_repeats(checked, what)

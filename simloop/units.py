@@ -28,7 +28,7 @@ SCALE_SUFFIXES: dict[str, int] = {
 
 _NUMBER = re.compile(
     r"(?P<mant>[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?)(?P<suffix>meg|[fpnumkgt])?",
-    re.IGNORECASE,
+    re.IGNORECASE | re.ASCII,
 )
 
 
@@ -64,7 +64,7 @@ def parse_number(text: str, *, what: str = "value") -> float:
             "f p n u m k meg g t (e.g. 1k, 10u, 2meg), no units"
         )
     suffix = m.group("suffix")
-    mantissa = Decimal(m.group("mant"))
+    mantissa = Decimal(m.group("mant"))  # ASCII digits only (re.ASCII above)
     if suffix:
         mantissa = mantissa.scaleb(SCALE_SUFFIXES[suffix.lower()])
     try:

@@ -85,6 +85,11 @@ def main(args: argparse.Namespace) -> int:
     from ..sweep import expand_grid, parse_vary, run_sweep
 
     args.workers = resolve_workers(args.workers)
+    from ..sweep import MAX_WORKERS
+
+    if args.workers > MAX_WORKERS:
+        raise InputError(f"--workers {args.workers} is over the limit of {MAX_WORKERS}; "
+                         "each worker is a process with its own engine")
     if args.workers < 1:
         raise InputError(f"--workers must be at least 1, got {args.workers}")
     if args.max_points < 1:
