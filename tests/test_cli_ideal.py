@@ -276,7 +276,7 @@ def test_ideal_plot_is_a_png(case_id: str, ideal_outputs) -> None:
 
 # ------------------------------------------------------------------------------- help
 #: Metavars of options that carry a physical quantity, and the unit their help must state.
-UNIT_OF_METAVAR = {"V": "[V]", "HZ": "[Hz]", "S": "[s]", "DEG": "degrees", "MIB": "[MiB]"}
+UNIT_OF_METAVAR = {"V": "[V]", "HZ": "[Hz]", "S": "[s]", "DEG": "degrees", "MIB": "[MiB]", "W": "[W]"}
 #: Metavars of dimensionless numeric options: counts, fractions, relative tolerances.
 DIMENSIONLESS = {"N", "D", "REL", "P"}
 #: Metavars of options that take no number.
