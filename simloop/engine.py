@@ -596,6 +596,15 @@ def _transient(ng: Any, request: TransientRequest, started: float) -> Trace:
     plot_name = _tran_plot(ng)
     time_points, vectors = _read_plot(ng, plot_name) if plot_name else (None, {})
     reached = float(time_points[-1]) if time_points is not None and time_points.size else None
+    singular = next((line for line in relevant if "singular matrix" in line.lower()), None)
+    if singular is not None:
+        raise _error(
+            request,
+            f"{where}: singular matrix ({' '.join(singular.split())}); check for loops of voltage "
+            "sources or inductors, floating nodes or capacitor-only cut sets, and break them (a "
+            "series resistance, a resistor to ground)",
+            words,
+        )
     if any("timestep too small" in line.lower() for line in relevant):
         at = reached
         if at is None:

@@ -1044,7 +1044,11 @@ def find_periodic_source(text: str, params: Mapping[str, float] | None = None) -
     found = _first_periodic(lines)
     if found is None:
         raise InputError("no SIN or PULSE source in the netlist; simloop needs a periodic drive")
-    overrides = {k.lower(): float(v) for k, v in (params or {}).items()}
+    overrides: dict[str, float] = {}
+    for key, value in (params or {}).items():
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise InputError(f"parameter {key}: {value!r} is not a number; give numbers")
+        overrides[key.lower()] = float(value)
     env = _param_env(_param_defs(lines), overrides)
     env.update(overrides)
     return _periodic_from(*found, env)

@@ -254,11 +254,6 @@ def test_cli_run_voltage_source_loop_one_line_exit_2(tmp_path: Path) -> None:
     assert proc.stdout == ""
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "engine._error_lines drops ngspice's 'Warning: singular matrix: check node vs#branch' as "
-    "chatter (it starts with 'warning'), so a loop of voltage sources is reported as 'timestep "
-    "too small at the initial time point ... smooth the discontinuity (finite rise and fall "
-    "times, switch RON/ROFF, a snubber)': the wrong cause and the wrong fix"))
 def test_cli_run_voltage_source_loop_reason_names_singular_matrix(tmp_path: Path) -> None:
     write(tmp_path, "loop.cir", SOURCE_LOOP)
     proc = simloop("run", "loop.cir", "--probe", "v(out)", "--harmonics", "2", cwd=tmp_path)
