@@ -598,9 +598,11 @@ def _transient(ng: Any, request: TransientRequest, started: float) -> Trace:
     reached = float(time_points[-1]) if time_points is not None and time_points.size else None
     singular = next((line for line in relevant if "singular matrix" in line.lower()), None)
     if singular is not None:
+        at_text = f"t = {reached:.6g} s" if reached is not None else "the initial time point"
         raise _error(
             request,
-            f"{where}: singular matrix ({' '.join(singular.split())}); check for loops of voltage "
+            f"{where}: singular matrix at {at_text} ({' '.join(singular.split())}); check for "
+            "loops of voltage "
             "sources or inductors, floating nodes or capacitor-only cut sets, and break them (a "
             "series resistance, a resistor to ground)",
             words,
