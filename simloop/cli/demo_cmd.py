@@ -22,7 +22,14 @@ SCENARIOS: tuple[tuple[str, str, dict[str, float | str], int, str], ...] = (
      "10 MHz doubler with small Schottky diodes behind 50 ohm: 2nd harmonic at 20 MHz"),
     ("pol-driver", "switching-stage", {"duty": 0.25, "fsw": 1e6}, 20,
      "1 MHz low-side switch at 25 % duty: the 4th harmonic null and the edge roll-off"),
+    ("mains-front-end", "full-wave-bridge",
+     {"vpk": 325.0, "rsrc": 2.0, "cres": 220e-6, "rload": 1e3}, 40,
+     "230 V mains bridge into 220 uF, about 100 W: the peaky line current against the Class D "
+     "limits (simulation only: never build or probe this without licensed practice)"),
 )
+
+#: Scenarios whose line current is checked against an IEC 61000-3-2 class.
+MAINS_CLASS = {"mains-front-end": "D"}
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -37,7 +44,7 @@ def main(args: argparse.Namespace) -> int:
     from ..engine import EnginePool
     from ..errors import InputError
     from ._common import Outputs, write_atomic, write_json
-    from .run_cmd import format_result, plot_result, write_run_report
+    from .run_cmd import CAUTION, format_result, needs_caution, plot_result, write_run_report
 
     chosen = [s for s in SCENARIOS if args.only in (None, s[0])]
     if not chosen:
@@ -48,13 +55,19 @@ def main(args: argparse.Namespace) -> int:
         for stem, circuit, sets, harmonics, story in chosen:
             values = {k: v for k, v in sets.items() if not isinstance(v, str)}
             choices = {k: v for k, v in sets.items() if isinstance(v, str)}
-            result = run_circuit(circuit, values=values, choices=choices,
-                                 settings=RunSettings(harmonics=harmonics), pool=pool)
+            settings = RunSettings(harmonics=harmonics, mains_class=MAINS_CLASS.get(stem))
+            result = run_circuit(circuit, values=values, choices=choices, settings=settings,
+                                 pool=pool)
             text = f"== {stem}: {story}\n" + format_result(result)
+            if needs_caution(result):
+                text += "\n" + CAUTION
             print(text + "\n")
             base = args.out / stem
             outputs.attempt(f"{base}.txt", lambda: write_atomic(base.with_suffix(".txt"), text + "\n"))
-            outputs.attempt(f"{base}.json", lambda: write_json(base.with_suffix(".json"), result.to_dict()))
+            document = result.to_dict()
+            if needs_caution(result):
+                document["caution"] = CAUTION
+            outputs.attempt(f"{base}.json", lambda: write_json(base.with_suffix(".json"), document))
             outputs.attempt(f"{base}.png", lambda: plot_result(result, base.with_suffix(".png")))
             outputs.attempt(f"{base}.html", lambda: write_run_report(result, base.with_suffix(".html")))
     return outputs.status()
