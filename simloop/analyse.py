@@ -419,14 +419,7 @@ def find_steady_state(run_periods, run_states, storage, *, fundamental_hz: float
         engine_periods += check
         residual, drift, _ = judge(time, watch(vectors), period=period, end=time[-1],
                                    harmonics=harmonics, noise=NOISE_FRACTION * settings.tolerance)
-        # The storage states repeat to the tolerance: nothing is left to settle, so a change of
-        # the harmonics between periods that does not die out is the engine's own step-to-step
-        # variation (seen on narrow conduction pulses at high drive), and the result is known to
-        # within it. Accept it up to ten times the tolerance (still 1/10 of the 1e-5 target).
-        settled = drift <= settings.tolerance
-        if not settled and residual <= 10.0 * settings.tolerance:
-            settled, drift = True, residual
-        if settled:
+        if drift <= settings.tolerance:
             return SteadyState(
                 time=time, vectors=vectors, periods_simulated=check,
                 engine_periods=engine_periods, converged=True, residual=residual, drift=drift,

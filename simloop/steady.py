@@ -407,7 +407,7 @@ def shoot(
     *,
     scale: NDArray[np.float64],
     tolerance: float,
-    max_iterations: int = 12,
+    max_iterations: int = 20,
 ) -> ShootingOutcome:
     """Find the initial state x of the storage elements for which one period maps onto itself.
 
@@ -421,7 +421,9 @@ def shoot(
         Typical magnitude of each state [V or A]: residuals and finite-difference steps are
         relative to it.
     tolerance : float
-        Stop when max_k |Phi(x)_k - x_k| / scale_k <= tolerance.
+        Stop when the Newton step, max_k |dx_k| / scale_k, is below it: the estimated distance
+        to the periodic state (not the residual |Phi(x) - x|, which understates it by
+        1 / (1 - dPhi/dx) when the slowest mode decays slowly).
     max_iterations : int
 
     Returns
@@ -467,16 +469,22 @@ def shoot(
     f = phi_x - x
     r = residual_of(f)
     history.append(r)
-    jac = None
+    jac = jacobian(x, phi_x)
     iterations = 0
-    while r > tolerance and iterations < max_iterations:
-        iterations += 1
+    distance = math.inf
+    while iterations < max_iterations:
         if jac is None:
             jac = jacobian(x, phi_x)
         try:
             delta = np.linalg.solve(jac - np.eye(m), -f)
         except np.linalg.LinAlgError:
             break
+        # |Phi(x) - x| understates the distance to the periodic state by 1/(1 - dPhi/dx) when
+        # the slowest mode is near 1: the Newton step is the distance, so converge on it
+        distance = residual_of(delta)
+        if distance <= tolerance:
+            break
+        iterations += 1
         step = 1.0
         improved = False
         for _ in range(5):
@@ -500,5 +508,5 @@ def shoot(
             break  # Newton converges fast or not at all here: stop spending engine runs
         # Broyden's update of dF/dx = J - I, kept as J (= dPhi/dx)
         jac = jac + np.outer((df + dx) - jac @ dx, dx) / float(dx @ dx)
-    return ShootingOutcome(state=x, converged=r <= tolerance, iterations=iterations,
+    return ShootingOutcome(state=x, converged=distance <= tolerance, iterations=iterations,
                            engine_periods=periods, residual=r, history=tuple(history))
