@@ -20,8 +20,10 @@ Prints figures; asserts nothing and is never run by the tests. Three measurement
    simloop-side time is broken down by wrapping the stages ``run_circuit`` calls.
 3. Memory. ``--points-memory`` points (default 1000) of the ``switching-stage`` circuit through
    ``run_sweep`` with ``workers=1`` and a results store in a temporary folder; the resident set
-   (VmRSS) of this process and of the engine worker is read every 50 points. The same is done
-   once more with worker recycling switched off, to tell a leak from the recycling's effect.
+   (VmRSS) of this process and of the engine worker is read every 50 points. The pool is the
+   one run_sweep builds (the engine's default ``max_tasks_per_child``); ``--memory-compare``
+   runs the sweep once more with the other recycling choice (every 50 transients if the
+   default keeps its workers, none otherwise), to tell a leak from the recycling's effect.
 
 Run from the repository root::
 
@@ -197,8 +199,23 @@ def _start_workers(pool: Any, workers: int) -> float:
     return time.perf_counter() - started
 
 
+_KEEP = object()  # max_tasks: leave the pool's own max_tasks_per_child
+
+
+def _default_max_tasks() -> Any:
+    import inspect
+
+    parameter = inspect.signature(_ORIGINAL_POOL.__init__).parameters.get("max_tasks_per_child")
+    return None if parameter is None else parameter.default
+
+
+def _recycling(max_tasks: Any) -> str:
+    return ("no recycling" if max_tasks is None or max_tasks >= 10**6
+            else f"workers recycled every {max_tasks} transients")
+
+
 @contextlib.contextmanager
-def _pool_class(*, prestart: bool, max_tasks: int | None = None,
+def _pool_class(*, prestart: bool, max_tasks: Any = _KEEP,
                 recorder: Callable[[Any, Any], None] | None = None) -> Iterator[list[Any]]:
     """Make run_sweep's ``EnginePool(n)`` a recorded pool, optionally pre-started.
 
@@ -211,7 +228,7 @@ def _pool_class(*, prestart: bool, max_tasks: int | None = None,
 
     class _BenchPool(_ORIGINAL_POOL):
         def __init__(self, workers: int = 1, **kwargs: Any) -> None:
-            if max_tasks is not None:
+            if max_tasks is not _KEEP:
                 kwargs["max_tasks_per_child"] = max_tasks
             super().__init__(workers, **kwargs)
             self.startup_s = _start_workers(self, workers) if prestart else 0.0
@@ -652,10 +669,12 @@ def profile_points(template: CircuitTemplate, grid: list[dict[str, Any]], fixed:
 
 
 # ------------------------------------------------------------------------------- 3. memory
-def measure_memory(points: int, *, recycle: bool, every: int = 50) -> dict[str, Any]:
+def measure_memory(points: int, *, max_tasks: Any = _KEEP, every: int = 50) -> dict[str, Any]:
     template, grid, fixed = memory_grid(points)
     settings = RunSettings(harmonics=10)
-    what = "workers recycled every 50 transients (default)" if recycle else "no recycling"
+    default = _default_max_tasks()
+    tasks = default if max_tasks is _KEEP else max_tasks
+    what = _recycling(tasks) + (" (the engine's default)" if max_tasks is _KEEP else "")
     _say(f"\n== 3. memory: {template.name}, {len(grid)} points (duty x rload), workers=1, store in "
          f"a temp folder, {what}; VmRSS every {every} points")
     samples: list[dict[str, Any]] = []
@@ -710,7 +729,7 @@ def measure_memory(points: int, *, recycle: bool, every: int = 50) -> dict[str, 
 
         store.put = timed_put  # run_sweep calls store.put: time the commits
         try:
-            with _pool_class(prestart=False, max_tasks=None if recycle else 10**9) as created:
+            with _pool_class(prestart=False, max_tasks=max_tasks) as created:
                 pools = created
                 before = _rss_mb(os.getpid())
                 outcome = run_sweep(template, grid, fixed_values=fixed, settings=settings,
@@ -730,7 +749,8 @@ def measure_memory(points: int, *, recycle: bool, every: int = 50) -> dict[str, 
     respawn = (statistics.median([intervals[i] for i in after_respawn]) - typical
                if after_respawn and typical is not None else None)
     result = {
-        "points": len(grid), "recycle": recycle, "samples": samples, "parent_before_mb": before,
+        "points": len(grid), "max_tasks_per_child": tasks, "recycling": _recycling(tasks),
+        "default_pool": max_tasks is _KEEP, "samples": samples, "parent_before_mb": before,
         "parent_range_mb": max(parent) - min(parent),
         "worker_range_mb": (max(workers) - min(workers)) if workers else None,
         "worker_max_mb": max(workers) if workers else None,
@@ -816,10 +836,10 @@ def summary(figures: dict[str, Any]) -> None:
                      f"{100 * s['median_overhead_same_run']:.1f} % (max "
                      f"{100 * s['max_overhead_same_run']:.1f} %)",
                      _verdict(s["median_overhead_same_run"] <= TARGET_OVERHEAD)))
-    for key in ("memory", "memory_norecycle"):
+    for key in ("memory", "memory_compare"):
         mem = figures.get(key)
         if mem:
-            tag = "" if mem["recycle"] else ", no recycling"
+            tag = f", {mem['recycling']}"
             rows.append((f"parent RSS max - min over {mem['points']} points{tag}",
                          f"<= {TARGET_MEMORY_MB:.0f} MB", f"{mem['parent_range_mb']:.1f} MB",
                          _verdict(mem["parent_range_mb"] <= TARGET_MEMORY_MB)))
@@ -849,6 +869,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--no-unlimited", action="store_true",
                         help="skip the throughput run without the BLAS limit")
     parser.add_argument("--no-profile", action="store_true", help="skip the cProfile table")
+    parser.add_argument("--memory-compare", action="store_true",
+                        help="run the memory sweep again with the other worker-recycling choice")
     parser.add_argument("--quiet-wait", type=float, default=0.0, metavar="S",
                         help="before each timed run wait up to S seconds for 90 %% of the CPUs "
                              "to be idle (for shared machines)")
@@ -886,11 +908,14 @@ def main(argv: list[str] | None = None) -> int:
         figures["overhead"] = measure_overhead(args.points, repeats=args.repeats,
                                                profile=not args.no_profile)
     if "memory" in only:
-        figures["memory"] = measure_memory(args.points_memory, recycle=True)
-        figures["memory_norecycle"] = measure_memory(args.points_memory, recycle=False)
-        a, b = figures["memory"], figures["memory_norecycle"]
-        _say(f"   recycling: the sweep took {a['wall_s']:.1f} s with it and {b['wall_s']:.1f} s "
-             "without (same points; the machine is shared, so compare with care)")
+        figures["memory"] = measure_memory(args.points_memory)
+        if args.memory_compare:
+            other = 50 if _default_max_tasks() is None else None
+            figures["memory_compare"] = measure_memory(args.points_memory, max_tasks=other)
+            a, b = figures["memory"], figures["memory_compare"]
+            _say(f"   the sweep took {a['wall_s']:.1f} s ({a['recycling']}) and {b['wall_s']:.1f} s "
+                 f"({b['recycling']}); same points, and the machine may be shared: compare "
+                 "with care")
     summary(figures)
     if args.json:
         def plain(value: Any) -> Any:
