@@ -19,6 +19,7 @@ Flow: :func:`load_circuit` (read, screen, inline, parse ``.param``, read metadat
 from __future__ import annotations
 
 import ast
+import functools
 import math
 import operator
 import re
@@ -643,12 +644,19 @@ _EG_KEYWORDS = ("value", "vol", "cur", "poly", "table", "laplace", "freq", "and"
                 "nor")
 
 
-def _top_cards(text: str) -> Iterator[list[str]]:
-    """Lower-case tokens of every top-level card (subcircuit bodies skipped)."""
+@functools.lru_cache(maxsize=16)
+def _top_cards(text: str) -> tuple[tuple[str, ...], ...]:
+    """Lower-case tokens of every top-level card (subcircuit bodies skipped).
+
+    Cached per text: one run asks several questions (nodes, branches, diode models, storage
+    elements, a source's nodes) of the same rendered netlist, and parsing it is the cost.
+    """
+    cards = []
     for ln in _top_level(_logical_lines(text.replace("\r\n", "\n"), origin="netlist", title=True)):
-        tokens = [m.group(0).lower() for m in _tokens(ln.text)]
+        tokens = tuple(m.group(0).lower() for m in _tokens(ln.text))
         if tokens:
-            yield tokens
+            cards.append(tokens)
+    return tuple(cards)
 
 
 def _model_names(text: str) -> dict[str, str]:
