@@ -45,7 +45,6 @@ if __name__ == "__main__":
 import argparse  # noqa: E402
 import json  # noqa: E402
 import math  # noqa: E402
-import platform  # noqa: E402
 import re  # noqa: E402
 import shutil  # noqa: E402
 import subprocess  # noqa: E402
@@ -53,6 +52,7 @@ import tempfile  # noqa: E402
 import time  # noqa: E402
 from pathlib import Path  # noqa: E402
 from typing import Any  # noqa: E402
+from benchinfo import machine
 
 ROOT = Path(__file__).resolve().parent.parent
 CIRCUITS = ROOT / "tests" / "data" / "circuits"
@@ -193,27 +193,6 @@ def slope(tmax: list[float], err: list[float]) -> float:
 
     return float(np.polyfit(np.log(tmax), np.log(err), 1)[0])
 
-
-def machine() -> dict[str, str]:
-    import numpy
-    import scipy
-
-    model = "unknown"
-    with open("/proc/cpuinfo", encoding="ascii", errors="replace") as fh:
-        for line in fh:
-            if line.startswith("model name"):
-                model = line.split(":", 1)[1].strip()
-                break
-    version = subprocess.run(["ngspice", "-v"], capture_output=True, text=True).stdout
-    ngspice = next((ln.strip("* ").split(" ")[0] for ln in version.splitlines()
-                    if "ngspice-" in ln), "?")
-    package = subprocess.run(["dpkg-query", "-W", "-f=${Version}", "ngspice"],
-                             capture_output=True, text=True).stdout.strip()
-    if package:
-        ngspice += f" (Debian package {package})"
-    return {"date": time.strftime("%Y-%m-%d %H:%M"), "nproc": str(os.cpu_count()),
-            "machine": platform.machine(), "cpu": model, "python": platform.python_version(),
-            "numpy": numpy.__version__, "scipy": scipy.__version__, "ngspice": ngspice}
 
 
 def bench_circuit(kind: str, pool: Any, workdir: Path) -> dict[str, Any]:

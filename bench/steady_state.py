@@ -60,7 +60,6 @@ if __name__ == "__main__":
 import argparse  # noqa: E402
 import json  # noqa: E402
 import math  # noqa: E402
-import platform  # noqa: E402
 import resource  # noqa: E402
 import shutil  # noqa: E402
 import statistics  # noqa: E402
@@ -71,6 +70,7 @@ from concurrent.futures import ThreadPoolExecutor  # noqa: E402
 from dataclasses import dataclass, field  # noqa: E402
 from pathlib import Path  # noqa: E402
 from typing import Any  # noqa: E402
+from benchinfo import machine
 
 ROOT = Path(__file__).resolve().parent.parent
 HARMONICS = 10
@@ -365,27 +365,6 @@ def breakdown(method: str, figures: dict[str, Any], states: int) -> str:
 
 
 # ------------------------------------------------------------------------------ main
-def machine() -> dict[str, str]:
-    import numpy
-    import scipy
-
-    model = "unknown"
-    with open("/proc/cpuinfo", encoding="ascii", errors="replace") as fh:
-        for line in fh:
-            if line.startswith("model name"):
-                model = line.split(":", 1)[1].strip()
-                break
-    version = subprocess.run(["ngspice", "-v"], capture_output=True, text=True).stdout
-    ngspice = next((ln.strip("* ").split(" ")[0] for ln in version.splitlines()
-                    if "ngspice-" in ln), "?")
-    package = subprocess.run(["dpkg-query", "-W", "-f=${Version}", "ngspice"],
-                             capture_output=True, text=True).stdout.strip()
-    if package:
-        ngspice += f" (Debian package {package})"
-    return {"date": time.strftime("%Y-%m-%d %H:%M"), "nproc": str(os.cpu_count()),
-            "machine": platform.machine(), "cpu": model, "python": platform.python_version(),
-            "numpy": numpy.__version__, "scipy": scipy.__version__, "ngspice": ngspice}
-
 
 def bench_case(case: Case, pool: Any, tally: dict[str, float], workdir: Path, *,
                repeats: int, settle_repeats: int, pool2: Any = None,
